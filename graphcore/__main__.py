@@ -1,0 +1,3 @@
+from graphcore.cli.main import main
+
+raise SystemExit(main())

@@ -1,0 +1,1 @@
+"""The ``midframe`` command line."""

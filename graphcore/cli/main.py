@@ -1,0 +1,333 @@
+"""``midframe``: render, check and inspect node graphs from the command line.
+
+Exit status: 0 success, 2 invalid input (graph, params, variables, files; the message names the
+file, node, field and fix, never a traceback), 1 internal failure.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import logging
+import os
+import re
+import shutil
+import subprocess
+import sys
+from collections.abc import Sequence
+
+from graphcore import __version__
+from graphcore.errors import GraphErrors, InputError, MidframeError
+from graphcore.registry import FrameRange, PluginError, Registry
+
+__all__ = ["main", "build_parser"]
+
+log = logging.getLogger("midframe")
+
+EXIT_OK, EXIT_FAILURE, EXIT_INVALID = 0, 1, 2
+
+
+class UsageError(InputError):
+    """A command-line argument that cannot be used."""
+
+
+def _frames_arg(text: str) -> FrameRange:
+    m = re.fullmatch(r"\s*(-?\d+)\s*(?:-\s*(-?\d+)\s*)?", text)
+    if not m:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a frame range; write FIRST-LAST, e.g. 1001-1048")
+    first = int(m.group(1))
+    last = int(m.group(2)) if m.group(2) is not None else first
+    if last < first:
+        raise argparse.ArgumentTypeError(f"frame range {text!r} runs backwards; write FIRST-LAST")
+    return FrameRange(first, last)
+
+
+def _positive_int(text: str) -> int:
+    try:
+        n = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"{text!r} must be 1 or more")
+    return n
+
+
+def _add_graph_args(p: argparse.ArgumentParser) -> None:
+    p.add_argument("graph", help="graph file (JSON)")
+    p.add_argument("--set", dest="sets", action="append", default=[], metavar="NAME=VALUE",
+                   help="set a template variable (repeatable)")
+    p.add_argument("--defaults", metavar="FILE", help="show-level defaults file layered beneath the graph")
+    p.add_argument("--plugin", dest="plugins", action="append", default=[], metavar="MODULE:ATTR",
+                   help="load an operator from an explicitly named module (repeatable)")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="midframe", description="Headless node-graph compositing engine: "
+                                     "in-between frames from motion vectors, rendered from JSON graphs.")
+    parser.add_argument("--version", action="version", version=f"midframe {__version__}")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    p = sub.add_parser("run", help="render a graph")
+    _add_graph_args(p)
+    p.add_argument("--frames", type=_frames_arg, metavar="A-B", help="frames to render (default: all the "
+                   "sources have)")
+    p.add_argument("--jobs", type=_positive_int, default=1, metavar="N", help="worker processes (default 1)")
+    p.add_argument("--cache", metavar="DIR", help="disk cache folder (shareable between runs and hosts)")
+    p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB",
+                   help="in-memory cache size per process (default 2048 MB)")
+    p.add_argument("-q", "--quiet", action="store_true", help="no progress output")
+
+    p = sub.add_parser("check", help="validate a graph without rendering")
+    _add_graph_args(p)
+
+    p = sub.add_parser("ops", help="list operators, or show one")
+    p.add_argument("name", nargs="?", help="operator to describe")
+    p.add_argument("--markdown", action="store_true", help="the full operator reference as Markdown")
+    p.add_argument("--plugin", dest="plugins", action="append", default=[], metavar="MODULE:ATTR")
+
+    p = sub.add_parser("schema", help="print the graph JSON Schema")
+    p.add_argument("--out", metavar="FILE", help="write to FILE instead of standard output")
+
+    p = sub.add_parser("graph", help="draw a graph (DOT text; SVG/PNG with Graphviz)")
+    _add_graph_args(p)
+    p.add_argument("--format", choices=("dot", "svg", "png"), default="dot")
+    p.add_argument("--out", metavar="FILE", help="output file (default: standard output, DOT only)")
+
+    p = sub.add_parser("demo", help="build the demo scenario and render it")
+    p.add_argument("outdir", help="folder to create the demo in")
+    p.add_argument("--jobs", type=_positive_int, default=1, metavar="N")
+    return parser
+
+
+def _registry(plugins: Sequence[str]) -> Registry:
+    from graphcore.registry import default_registry
+
+    reg = default_registry()
+    for target in plugins:
+        try:
+            reg.add_target(target)
+        except PluginError as exc:
+            raise UsageError(str(exc), field="--plugin", fix="name an importable module:attribute holding "
+                             "an Operator") from None
+    return reg
+
+
+def _print_warnings(warnings) -> None:
+    for w in warnings:
+        print(f"midframe: warning: {w.describe()}", file=sys.stderr)
+
+
+# -- commands --------------------------------------------------------------------------------------
+def cmd_check(args: argparse.Namespace) -> int:
+    from graphcore.evaluate import Evaluator
+    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.validate import load_graph
+
+    reg = _registry(args.plugins)
+    loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg, allow_unset=True)
+    _print_warnings(loaded.warnings)
+    if loaded.graph is None:
+        print(f"{args.graph}: valid template ({loaded_nodes(args.graph)}); set its variables to check files too")
+        return EXIT_OK
+    ev = Evaluator(loaded.graph, reg)
+    frames = output_frames(ev, None) if ev.sinks() else []
+    tasks = make_tasks(ev, frames)
+    check_targets(ev, tasks, protected_paths(ev))
+    span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
+    print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
+    return EXIT_OK
+
+
+def loaded_nodes(path: str) -> str:
+    try:
+        with open(path) as fh:
+            n = len(json.load(fh).get("nodes", {}))
+        return f"{n} nodes"
+    except (OSError, ValueError, AttributeError):
+        return "graph"
+
+
+def cmd_run(args: argparse.Namespace) -> int:
+    from graphcore.cache import Cache, DiskCache, MemoryCache
+    from graphcore.cli.progress import Progress
+    from graphcore.evaluate import Evaluator
+    from graphcore.execute import PoolExecutor, SerialExecutor
+    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.validate import load_graph
+
+    reg = _registry(args.plugins)
+    loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg)
+    _print_warnings(loaded.warnings)
+    graph = loaded.graph
+    disk = None
+    if args.cache:
+        try:
+            disk = DiskCache(args.cache)
+        except OSError as exc:
+            raise UsageError(f"cannot use cache folder: {exc.strerror}", file=args.cache, field="--cache",
+                             fix="name a writable folder") from None
+    cache = Cache(MemoryCache(args.memory << 20), disk)
+    ev = Evaluator(graph, reg, cache)
+    if not ev.sinks():
+        raise UsageError("nothing to render: the graph has no write node", file=graph.file, field="nodes",
+                         fix="add a write node")
+    frames = output_frames(ev, args.frames)
+    protected = protected_paths(ev)
+    ev.protected_paths = protected
+    tasks = make_tasks(ev, frames)
+    check_targets(ev, tasks, protected)
+    executor = SerialExecutor() if args.jobs == 1 else PoolExecutor(args.jobs, memory_bytes=args.memory << 20,
+                                                                      plugins=args.plugins)
+    log.info("rendering %d frames (%s-%s) of %d outputs with %d job(s)", len(frames), frames[0], frames[-1],
+             len(ev.sinks()), executor.jobs)
+    progress = Progress(len(tasks), quiet=args.quiet)
+    report = executor.run(ev, tasks, progress)
+    failed = report.failed
+    if failed:
+        seen: dict[str, list[int]] = {}
+        for r in failed:
+            seen.setdefault(r.message, []).append(r.frame)
+        for message, frames_failed in seen.items():
+            print(f"midframe: error: frames {_compact(frames_failed)}: {message}", file=sys.stderr)
+        print(f"midframe: {len(failed)} of {len(tasks)} frames failed: {_compact([r.frame for r in failed])}",
+              file=sys.stderr)
+        return report.exit_code
+    done = len(report.results)
+    print(f"midframe: rendered {done} frame{'s' if done != 1 else ''}", file=sys.stderr)
+    return EXIT_OK
+
+
+def _compact(frames: Sequence[int]) -> str:
+    """1001,1002,1003,1007 -> '1001-1003, 1007'."""
+    fs = sorted(set(frames))
+    parts = []
+    i = 0
+    while i < len(fs):
+        j = i
+        while j + 1 < len(fs) and fs[j + 1] == fs[j] + 1:
+            j += 1
+        parts.append(str(fs[i]) if i == j else f"{fs[i]}-{fs[j]}")
+        i = j + 1
+    return ", ".join(parts)
+
+
+def cmd_ops(args: argparse.Namespace) -> int:
+    from graphcore.cli.describe import describe_operator, operators_markdown
+
+    reg = _registry(args.plugins)
+    good, bad = reg.load_all()
+    if args.markdown:
+        print(operators_markdown(good), end="")
+        return EXIT_OK
+    if args.name:
+        if args.name in bad:
+            raise UsageError(str(bad[args.name]), field="NAME", fix="reinstall or fix the plugin package")
+        if args.name not in good:
+            import difflib
+
+            close = difflib.get_close_matches(args.name, list(good), n=1)
+            raise UsageError(f"no operator called '{args.name}'", field="NAME",
+                             fix=(f"did you mean '{close[0]}'? " if close else "") + "`midframe ops` lists them")
+        print(describe_operator(good[args.name]))
+        return EXIT_OK
+    width = max([len(n) for n in list(good) + list(bad)] + [4])
+    for name in sorted(good):
+        op = good[name]
+        print(f"{name:<{width}}  v{op.version}  {op.summary}  [{op.source}]")
+    for name in sorted(bad):
+        print(f"{name:<{width}}  BROKEN  {bad[name]}")
+    return EXIT_OK
+
+
+def cmd_schema(args: argparse.Namespace) -> int:
+    from graphcore.registry import default_registry
+    from graphcore.schema.jsonschema import graph_json_schema
+
+    text = json.dumps(graph_json_schema(default_registry()), indent=2, sort_keys=True) + "\n"
+    if args.out:
+        with open(args.out, "w") as fh:
+            fh.write(text)
+    else:
+        sys.stdout.write(text)
+    return EXIT_OK
+
+
+def cmd_graph(args: argparse.Namespace) -> int:
+    from graphcore.cli.describe import graph_dot
+    from graphcore.validate import load_graph
+
+    reg = _registry(args.plugins)
+    loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg, allow_unset=True)
+    with open(args.graph, encoding="utf-8-sig") as fh:
+        doc = json.load(fh)
+    from graphcore.schema.upgrade import upgrade
+
+    doc, _ = upgrade(doc)
+    del loaded
+    dot = graph_dot(doc, reg)
+    if args.format == "dot":
+        if args.out:
+            with open(args.out, "w") as fh:
+                fh.write(dot)
+        else:
+            sys.stdout.write(dot)
+        return EXIT_OK
+    exe = shutil.which("dot")
+    if exe is None:
+        raise UsageError(f"drawing {args.format} needs Graphviz's 'dot' program, which is not installed",
+                         field="--format", fix="install Graphviz (Debian: apt-get install graphviz) or use "
+                         "--format dot")
+    if not args.out:
+        raise UsageError(f"--format {args.format} needs --out FILE", field="--out", fix="add --out graph."
+                         + args.format)
+    subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), check=True)
+    return EXIT_OK
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from graphcore.demo.run import run_demo
+
+    return run_demo(args.outdir, jobs=args.jobs)
+
+
+COMMANDS = {"run": cmd_run, "check": cmd_check, "ops": cmd_ops, "schema": cmd_schema, "graph": cmd_graph,
+            "demo": cmd_demo}
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    level = logging.WARNING - 10 * min(args.verbose, 2)
+    if args.command in ("run", "demo"):
+        level = min(level, logging.INFO)
+    logging.basicConfig(level=level, format="midframe: %(levelname)s: %(message)s", stream=sys.stderr)
+    try:
+        return COMMANDS[args.command](args)
+    except GraphErrors as exc:
+        print(exc.describe(), file=sys.stderr)
+        return EXIT_INVALID
+    except InputError as exc:
+        print(f"midframe: error: {exc.describe()}", file=sys.stderr)
+        return EXIT_INVALID
+    except KeyboardInterrupt:
+        print("midframe: interrupted", file=sys.stderr)
+        return 130
+    except BrokenPipeError:
+        return EXIT_OK
+    except MidframeError as exc:
+        log.debug("internal failure", exc_info=True)
+        print(f"midframe: internal error: {exc}", file=sys.stderr)
+        return EXIT_FAILURE
+    except Exception:  # a bug: say so, with the traceback, and exit 1
+        import traceback
+
+        traceback.print_exc()
+        print("midframe: internal error (a bug in midframe or a plugin; the traceback above helps report it)",
+              file=sys.stderr)
+        return EXIT_FAILURE
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())

@@ -1,0 +1,239 @@
+"""The evaluation core shared by every executor: pull-based evaluation of a node at a sample.
+
+Policy
+------
+To produce node ``n`` at sample ``s`` the evaluator asks ``n``'s operator which input samples it
+needs (``needs``; by default every connected port at ``s``), derives the cache key from the
+operator, its params, ``s``, its identity text and the keys of those inputs, and looks the key up
+in the cache. Only on a miss are the inputs evaluated (recursively, the same way) and the
+operator's pure ``compute`` called. So a changed downstream param changes only downstream keys:
+upstream results are found in the cache and never recomputed.
+
+State
+-----
+``_keys`` / ``_sources`` memoise per (node, sample); ``calls`` counts compute calls per node (the
+tests count them); ``warnings`` collects what operators reported through ``ctx.warn``, once per
+(node, message). Executors differ only in how they hand out (sink, sample) tasks.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections import Counter
+from collections.abc import Mapping, Sequence
+from typing import Any
+
+from graphcore import __version__
+from graphcore.cache import Cache
+from graphcore.errors import InputError, MidframeError, OpError
+from graphcore.image import Image
+from graphcore.keys import node_key
+from graphcore.registry import FrameRange, OpContext, Operator, Registry, default_registry
+from graphcore.sample import Sample
+from graphcore.spec import Graph
+
+__all__ = ["Evaluator", "NodeFailure"]
+
+log = logging.getLogger("midframe.render")
+
+
+class NodeFailure(MidframeError):
+    """An operator raised something that is not an input error: a bug (exit status 1)."""
+
+    def __init__(self, message: str, node_id: str):
+        super().__init__(message)
+        self.node_id = node_id
+
+
+Request = tuple[str, str, tuple[Sample, ...], bool]  # port, source node, samples, single?
+
+
+class Evaluator:
+    """Evaluates nodes of one resolved graph at samples, through a cache.
+
+    Parameters
+    ----------
+    graph : Graph
+        A validated graph (``graphcore.validate.load_graph``).
+    registry : Registry, optional
+        Where operators come from (installed ones by default).
+    cache : Cache, optional
+        Memory (and optionally disk) tiers; a fresh memory-only cache by default.
+    protected_paths : frozenset of str
+        Real paths sinks must never replace (the graph's source plates).
+    """
+
+    def __init__(self, graph: Graph, registry: Registry | None = None, cache: Cache | None = None, *,
+                 protected_paths: frozenset[str] = frozenset()) -> None:
+        self.graph = graph
+        registry = registry or default_registry()
+        self.ops: dict[str, Operator] = {nid: registry.get(node.op) for nid, node in graph.nodes.items()}
+        self.cache = cache if cache is not None else Cache()
+        self.protected_paths = protected_paths
+        self.calls: Counter[str] = Counter()
+        self.warnings: dict[tuple[str, str], None] = {}
+        self._keys: dict[tuple[str, Sample], str] = {}
+        self._requests: dict[tuple[str, Sample], list[Request]] = {}
+        self._sources: dict[tuple[str, Sample], tuple[str, ...]] = {}
+        self._frames: dict[str, FrameRange | None] = {}
+        self._params_json = {nid: node.params_json() for nid, node in graph.nodes.items()}
+        self._graph_hash = graph.hash
+        self._path_nodes = {nid: tuple({"id": u, "op": graph.nodes[u].op,
+                                        "params": graph.nodes[u].params_dict()}
+                                       for u in graph.upstream(nid)) for nid in graph.nodes}
+
+    # -- errors -----------------------------------------------------------------------------
+    def _fill(self, exc: InputError, nid: str) -> InputError:
+        if exc.node_id is None:
+            exc.node_id = nid
+        if exc.file is None:
+            exc.file = self.graph.file
+        return exc
+
+    # -- what a node asks of its inputs ---------------------------------------------------------
+    def requests(self, nid: str, sample: Sample) -> list[Request]:
+        memo = self._requests.get((nid, sample))
+        if memo is not None:
+            return memo
+        node = self.graph.nodes[nid]
+        op = self.ops[nid]
+        try:
+            asked = op.needs(node.params, sample)
+        except InputError as exc:
+            raise self._fill(exc, nid) from None
+        out: list[Request] = []
+        if asked is None:
+            for port in op.inputs:
+                if port.name in node.inputs:
+                    out.append((port.name, node.inputs[port.name], (sample,), True))
+        else:
+            for port_name, want in asked.items():
+                if port_name not in node.inputs:
+                    if op.port(port_name) is not None and op.port(port_name).optional:  # type: ignore[union-attr]
+                        continue
+                    raise OpError(f"operator asked for input '{port_name}', which is not connected",
+                                  node_id=nid, file=self.graph.file, field=f"inputs.{port_name}",
+                                  fix=f"connect '{port_name}'")
+                if isinstance(want, Sample):
+                    out.append((port_name, node.inputs[port_name], (want,), True))
+                else:
+                    out.append((port_name, node.inputs[port_name], tuple(want), False))
+        self._requests[(nid, sample)] = out
+        return out
+
+    # -- keys ---------------------------------------------------------------------------------
+    def key(self, nid: str, sample: Sample) -> str:
+        memo = self._keys.get((nid, sample))
+        if memo is not None:
+            return memo
+        node = self.graph.nodes[nid]
+        op = self.ops[nid]
+        identity = ""
+        if op.identity is not None:
+            try:
+                identity = op.identity(node.params, sample)
+            except InputError as exc:
+                raise self._fill(exc, nid) from None
+        inputs = [(port, [self.key(src, s) for s in samples]) for port, src, samples, _ in
+                  self.requests(nid, sample)]
+        k = node_key(op.name, op.version, self._params_json[nid], sample.token(), identity, inputs)
+        self._keys[(nid, sample)] = k
+        return k
+
+    def sources(self, nid: str, sample: Sample) -> tuple[str, ...]:
+        """Every file read upstream of ``nid`` at ``sample`` (sorted, unique)."""
+        memo = self._sources.get((nid, sample))
+        if memo is not None:
+            return memo
+        node = self.graph.nodes[nid]
+        op = self.ops[nid]
+        found: set[str] = set()
+        if op.sources is not None:
+            found.update(op.sources(node.params, sample))
+        for _, src, samples, _ in self.requests(nid, sample):
+            for s in samples:
+                found.update(self.sources(src, s))
+        out = tuple(sorted(found))
+        self._sources[(nid, sample)] = out
+        return out
+
+    # -- frame ranges ---------------------------------------------------------------------------
+    def frames(self, nid: str) -> FrameRange | None:
+        """Integer frames ``nid`` has data for; None when unbounded (no file-backed input)."""
+        if nid in self._frames:
+            return self._frames[nid]
+        node = self.graph.nodes[nid]
+        op = self.ops[nid]
+        inputs = {port: self.frames(src) for port, src in node.inputs.items()}
+        try:
+            if op.frames is not None:
+                rng = op.frames(node.params, inputs)
+            else:
+                rng = None
+                for port in op.inputs:
+                    if port.name in inputs and inputs[port.name] is not None:
+                        r = inputs[port.name]
+                        if rng is None:
+                            rng = r
+                        else:
+                            both = rng.intersect(r)
+                            if both is None:
+                                raise OpError(f"inputs have no frames in common ({rng} and {r})",
+                                              field="inputs", fix="check the source frame ranges")
+                            rng = both
+        except InputError as exc:
+            raise self._fill(exc, nid) from None
+        self._frames[nid] = rng
+        return rng
+
+    # -- evaluation -----------------------------------------------------------------------------
+    def evaluate(self, nid: str, sample: Sample) -> Image:
+        """The result of node ``nid`` at ``sample`` (from the cache when possible)."""
+        op = self.ops[nid]
+        key = self.key(nid, sample) if op.cacheable else None
+        if key is not None:
+            hit = self.cache.get(key)
+            if hit is not None:
+                return hit
+        node = self.graph.nodes[nid]
+        inputs: dict[str, Any] = {p.name: None for p in op.inputs}
+        for port, src, samples, single in self.requests(nid, sample):
+            images = tuple(self.evaluate(src, s) for s in samples)
+            inputs[port] = images[0] if single else images
+        ctx = OpContext(sample=sample, node_id=nid, graph_file=self.graph.file, graph_hash=self._graph_hash,
+                        tool_version=__version__, params_json=self._params_json[nid],
+                        sources=self.sources(nid, sample), path_nodes=self._path_nodes[nid],
+                        warn=lambda msg, _nid=nid: self._warn(_nid, msg),
+                        protected_paths=self.protected_paths)
+        self.calls[nid] += 1
+        try:
+            result = op.compute(node.params, inputs, ctx)
+        except InputError as exc:
+            raise self._fill(exc, nid) from None
+        except MidframeError:
+            raise
+        except Exception as exc:
+            raise NodeFailure(f"node '{nid}' ({op.name}) failed at {sample}: {type(exc).__name__}: {exc}",
+                              nid) from exc
+        if not isinstance(result, Image):
+            raise NodeFailure(f"node '{nid}' ({op.name}) returned {type(result).__name__}, not an Image", nid)
+        if key is not None:
+            self.cache.put(key, result, persist=op.disk_cache)
+        return result
+
+    def _warn(self, nid: str, message: str) -> None:
+        if (nid, message) not in self.warnings:
+            self.warnings[(nid, message)] = None
+            log.warning("node '%s': %s", nid, message)
+
+    def forget_samples(self) -> None:
+        """Drop per-sample memo tables (keys, requests, sources); the cache keeps the values."""
+        self._keys.clear()
+        self._requests.clear()
+        self._sources.clear()
+
+    def sinks(self) -> list[str]:
+        return sorted(nid for nid, op in self.ops.items() if op.sink)
+
+    def input_samples(self, nid: str, sample: Sample) -> Mapping[str, Sequence[Sample]]:
+        return {port: samples for port, _, samples, _ in self.requests(nid, sample)}

@@ -1,0 +1,140 @@
+"""Planning a render: which sinks at which samples, and what must never be overwritten."""
+
+from __future__ import annotations
+
+import os
+import time
+from collections import Counter
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass, field
+from fractions import Fraction
+
+from graphcore.errors import InputError
+from graphcore.evaluate import Evaluator, NodeFailure
+from graphcore.registry import FrameRange
+from graphcore.sample import Sample
+
+__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "output_frames", "protected_paths",
+           "check_targets", "render_task"]
+
+
+@dataclass(frozen=True)
+class Task:
+    """Produce sink ``node_id`` at ``frame`` (and ``view``)."""
+
+    node_id: str
+    frame: int
+    view: int = 0
+
+    @property
+    def sample(self) -> Sample:
+        return Sample(Fraction(self.frame), Fraction(self.view))
+
+
+@dataclass
+class FrameResult:
+    """What became of one task. Plain data, so it crosses process boundaries without pickling
+    exception objects."""
+
+    node_id: str
+    frame: int
+    status: str  # "ok" | "input-error" | "failure"
+    message: str = ""
+    error: dict = field(default_factory=dict)  # InputError fields for input errors
+    seconds: float = 0.0
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass
+class RunReport:
+    results: list[FrameResult] = field(default_factory=list)
+    calls: Counter = field(default_factory=Counter)
+
+    @property
+    def failed(self) -> list[FrameResult]:
+        return [r for r in self.results if r.status != "ok"]
+
+    @property
+    def exit_code(self) -> int:
+        if not self.failed:
+            return 0
+        return 1 if any(r.status == "failure" for r in self.failed) else 2
+
+
+def output_frames(ev: Evaluator, frames: FrameRange | None) -> list[int]:
+    """Frames to render: ``frames`` when given, else the union of the sinks' frame ranges."""
+    if frames is not None:
+        return list(frames)
+    ranges = [r for r in (ev.frames(s) for s in ev.sinks()) if r is not None]
+    if not ranges:
+        raise InputError("cannot tell which frames to render: no sink has a file-backed input",
+                         file=ev.graph.file, field="--frames", fix="pass --frames FIRST-LAST")
+    lo = min(r.first for r in ranges)
+    hi = max(r.last for r in ranges)
+    return list(range(lo, hi + 1))
+
+
+def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:
+    """One task per sink per frame; a frame outside a sink's input range fails on its own, with the
+    operator's message (e.g. the missing file), rather than being silently dropped."""
+    frames = list(frames)
+    return [Task(sink, f) for sink in ev.sinks() for f in frames]
+
+
+def protected_paths(ev: Evaluator) -> frozenset[str]:
+    """Real paths of every file a source node of the graph reads, over its frame range."""
+    paths: set[str] = set()
+    for nid, op in ev.ops.items():
+        if op.sources is None or op.sink:
+            continue
+        node = ev.graph.nodes[nid]
+        rng = ev.frames(nid)
+        frames: Iterable[int] = list(rng) if rng is not None else [0]
+        for f in frames:
+            for p in op.sources(node.params, Sample(f)):
+                paths.add(os.path.realpath(p))
+    return frozenset(paths)
+
+
+def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -> None:
+    """Refuse, before anything renders, a sink that would replace a source plate or another sink's
+    frame."""
+    seen: dict[str, str] = {}
+    by_sink: dict[str, list[int]] = {}
+    for t in tasks:
+        by_sink.setdefault(t.node_id, []).append(t.frame)
+    for sink, frames in sorted(by_sink.items()):
+        op = ev.ops[sink]
+        if op.targets is None:
+            continue
+        for path in op.targets(ev.graph.nodes[sink].params, frames):
+            real = os.path.realpath(path)
+            if real in protected:
+                raise InputError(f"would overwrite source plate {path}", file=ev.graph.file, node_id=sink,
+                                 field=f"nodes.{sink}.params.path",
+                                 fix="write somewhere else: midframe never replaces a file the graph reads")
+            if real in seen and seen[real] != sink:
+                raise InputError(f"writes {path}, which node '{seen[real]}' also writes", file=ev.graph.file,
+                                 node_id=sink, field=f"nodes.{sink}.params.path",
+                                 fix="give each write node its own path")
+            seen[real] = sink
+
+
+def render_task(ev: Evaluator, task: Task) -> FrameResult:
+    """Evaluate one sink at one sample, turning errors into a plain record."""
+    t0 = time.perf_counter()
+    before = set(ev.warnings)
+    try:
+        ev.evaluate(task.node_id, task.sample)
+        status, message, error = "ok", "", {}
+    except InputError as exc:
+        status, message = "input-error", exc.describe()
+        error = {"message": exc.message, "file": exc.file, "node_id": exc.node_id, "field": exc.field,
+                 "fix": exc.fix}
+    except NodeFailure as exc:
+        status, message, error = "failure", str(exc), {"node_id": exc.node_id}
+    new = [f"node '{n}': {m}" for (n, m) in ev.warnings if (n, m) not in before]
+    return FrameResult(task.node_id, task.frame, status, message, error, time.perf_counter() - t0, new)
+
+
+ProgressFn = Callable[[FrameResult], None]

@@ -1,0 +1,1 @@
+"""Built-in midframe operators. Each registers through the ``midframe.operators`` entry points."""
