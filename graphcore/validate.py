@@ -221,6 +221,11 @@ def load_graph(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iter
             allowed = list(NodeSpec.model_fields)
             for e in exc.errors():
                 errors.append(_from_pydantic(e, file=file, prefix=f"nodes.{nid}", node_id=nid, allowed=allowed))
+            if isinstance(raw, dict):  # keep checking the node without its unknown keys
+                try:
+                    node_specs[nid] = NodeSpec.model_validate({k: v for k, v in raw.items() if k in allowed})
+                except pydantic.ValidationError:
+                    pass
     if raw_nodes is not None and isinstance(raw_nodes, dict) and not raw_nodes:
         errors.append(GraphError("the graph has no nodes", file=file, field="nodes",
                                  fix="add a read node and a write node"))

@@ -1,0 +1,116 @@
+"""Evaluation at samples: pull-based requests, cache keys, call counting, frame ranges."""
+
+from __future__ import annotations
+
+from fractions import Fraction
+
+import numpy as np
+import pytest
+
+from graphcore.cache import Cache, DiskCache, MemoryCache
+from graphcore.errors import OpError
+from graphcore.evaluate import Evaluator, NodeFailure
+from graphcore.registry import FrameRange
+from graphcore.sample import Sample
+from graphcore.validate import load_graph
+from tests.conftest import graph_doc
+
+DIAMOND = {"src": {"op": "test-const", "params": {"value": 1.0}},
+           "left": {"op": "test-scale", "params": {"factor": 2.0}, "inputs": {"image": "src"}},
+           "right": {"op": "test-scale", "params": {"factor": 3.0}, "inputs": {"image": "src"}},
+           "join": {"op": "test-add", "inputs": {"a": "left", "b": "right"}},
+           "out": {"op": "test-collect", "inputs": {"image": "join"}}}
+
+
+def _ev(registry, nodes, cache=None):
+    g = load_graph(graph_doc(nodes), registry=registry, file="t.json").graph
+    return Evaluator(g, registry, cache)
+
+
+def test_diamond_known_answer_and_shared_upstream_computed_once(registry):
+    ev = _ev(registry, DIAMOND)
+    img = ev.evaluate("out", Sample(5))
+    # src at frame 5 = 1 + 5 = 6; left 12, right 18, join 30
+    assert np.all(img.pixels == 30.0)
+    assert ev.calls == {"src": 1, "left": 1, "right": 1, "join": 1, "out": 1}
+    ev.evaluate("join", Sample(5))  # cached
+    assert ev.calls["join"] == 1
+
+
+def test_views_and_fractional_samples_are_distinct_keys(registry):
+    ev = _ev(registry, DIAMOND)
+    keys = {ev.key("join", s) for s in (Sample(1), Sample(2), Sample(1, 1), Sample(Fraction(3, 2)))}
+    assert len(keys) == 4
+    assert np.all(ev.evaluate("join", Sample(1, 1)).pixels == 5 * (1 + 1 + 100))
+
+
+def test_keys_are_deterministic_across_evaluators(registry):
+    a, b = _ev(registry, DIAMOND), _ev(registry, DIAMOND)
+    assert a.key("out", Sample(3)) == b.key("out", Sample(3))
+    changed = dict(DIAMOND, right={"op": "test-scale", "params": {"factor": 4.0}, "inputs": {"image": "src"}})
+    c = _ev(registry, changed)
+    assert c.key("left", Sample(3)) == a.key("left", Sample(3))   # upstream of the change: same key
+    assert c.key("join", Sample(3)) != a.key("join", Sample(3))   # downstream: new key
+
+
+def test_downstream_param_change_does_not_recompute_upstream(tmp_path, registry):
+    """A shared disk cache between two runs: only the changed node and what is below it run."""
+    first = _ev(registry, DIAMOND, Cache(MemoryCache(), DiskCache(tmp_path)))
+    for f in range(1, 4):
+        first.evaluate("out", Sample(f))
+    assert first.calls["src"] == 3
+    changed = dict(DIAMOND, join={"op": "test-add", "params": {"mode": "diff"}, "inputs": {"a": "left", "b": "right"}})
+    second = _ev(registry, changed, Cache(MemoryCache(), DiskCache(tmp_path)))
+    for f in range(1, 4):
+        img = second.evaluate("out", Sample(f))
+        assert np.all(img.pixels == 2 * (1 + f) - 3 * (1 + f))
+    assert second.calls["src"] == 0 and second.calls["left"] == 0 and second.calls["right"] == 0
+    assert second.calls["join"] == 3
+
+
+def test_pull_based_requests_at_other_samples(registry):
+    nodes = {"src": {"op": "test-const", "params": {"value": 0.0}},
+             "d": {"op": "test-next-diff", "params": {"step": 2}, "inputs": {"image": "src"}},
+             "out": {"op": "test-collect", "inputs": {"image": "d"}}}
+    ev = _ev(registry, nodes)
+    assert np.all(ev.evaluate("out", Sample(3)).pixels == 2.0)
+    assert ev.input_samples("d", Sample(3)) == {"image": (Sample(3), Sample(5))}
+    ev.evaluate("out", Sample(5))  # needs src at 5 (cached) and 7
+    assert ev.calls["src"] == 3
+
+
+def test_frame_ranges_intersect(registry):
+    nodes = {"a": {"op": "test-const", "params": {"first": 1, "last": 10}},
+             "b": {"op": "test-const", "params": {"first": 5, "last": 20}},
+             "s": {"op": "test-add", "inputs": {"a": "a", "b": "b"}},
+             "out": {"op": "test-collect", "inputs": {"image": "s"}}}
+    ev = _ev(registry, nodes)
+    assert ev.frames("out") == FrameRange(5, 10)
+
+
+def test_disjoint_frame_ranges_are_an_input_error(registry):
+    nodes = {"a": {"op": "test-const", "params": {"first": 1, "last": 3}},
+             "b": {"op": "test-const", "params": {"first": 5, "last": 9}},
+             "s": {"op": "test-add", "inputs": {"a": "a", "b": "b"}},
+             "out": {"op": "test-collect", "inputs": {"image": "s"}}}
+    with pytest.raises(OpError) as info:
+        _ev(registry, nodes).frames("out")
+    assert info.value.node_id == "s" and info.value.file == "t.json"
+
+
+def test_operator_errors_carry_the_node(registry):
+    nodes = {"src": {"op": "test-const"}, "f": {"op": "test-fail", "inputs": {"image": "src"}},
+             "g": {"op": "test-fail", "params": {"kind": "bug"}, "inputs": {"image": "src"}}}
+    ev = _ev(registry, nodes)
+    with pytest.raises(OpError) as info:
+        ev.evaluate("f", Sample(1))
+    assert info.value.node_id == "f" and info.value.field == "kind"
+    with pytest.raises(NodeFailure) as info2:
+        ev.evaluate("g", Sample(1))
+    assert info2.value.node_id == "g" and "ZeroDivisionError" in str(info2.value)
+
+
+def test_results_are_read_only(registry):
+    img = _ev(registry, DIAMOND).evaluate("join", Sample(1))
+    with pytest.raises(ValueError):
+        img.pixels[0, 0, 0] = 1.0
