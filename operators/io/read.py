@@ -1,0 +1,206 @@
+"""The ``read`` operator: one image per frame (or per view) from a file sequence or a still.
+
+Formats by extension: ``.exr`` through OpenEXR (linear, premultiplied, every channel and header
+attribute kept, see :mod:`operators.io.exr`), ``.png .tif .tiff .jpg .jpeg`` through OpenCV
+(decoded to linear and premultiplied, see :mod:`operators.io.raster`).
+
+Which number picks the file: ``axis="frame"`` uses the sample's frame (a plate numbered by time);
+``axis="view"`` uses the sample's view (stills of a camera rig numbered by camera). A pattern
+without a frame token (``%04d``, ``%d``, ``####``) is one still file used at every sample.
+Plates exist only at integer numbers: asking a sequence for a fractional one is an error (only
+in-between synthesis makes fractional samples).
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Mapping
+from typing import Any, Literal
+
+import numpy as np
+from pydantic import BaseModel, ConfigDict, Field, field_validator
+
+from graphcore.errors import OpError
+from graphcore.image import COLOR, Image
+from graphcore.registry.operator import FrameRange, OpContext, Operator
+from graphcore.sample import Sample
+from operators.io import exr, raster, sequence
+from operators.io import transfer as tf
+from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
+                                  extension, resolved)
+
+__all__ = ["READ", "ReadParams", "read_file"]
+
+
+class ReadParams(BaseModel):
+    """Parameters of ``read``."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    path: str = Field(description=(
+        "File to read: a sequence pattern with one frame token (plate.%04d.exr, plate.%d.exr, "
+        "plate.####.exr; %% is a literal percent) or a single still file used at every sample. "
+        "Extension picks the format: .exr .png .tif .tiff .jpg .jpeg."))
+    axis: Literal["frame", "view"] = Field("frame", description=(
+        "Which sample coordinate the file number is: 'frame' for a plate numbered by time, "
+        "'view' for stills of a camera rig numbered by camera."))
+    transfer: Literal["auto", "linear", "srgb", "rec709"] = Field("auto", description=(
+        "How colour is encoded in the file; it is decoded to linear light. 'auto' = linear for "
+        "EXR and float TIFF, sRGB (IEC 61966-2-1) for 8/16-bit files. 'rec709' = ITU-R BT.709 "
+        "OETF. Alpha and non-colour channels are never decoded."))
+    channels: tuple[str, ...] | None = Field(None, description=(
+        "Channel names to keep, in this order (e.g. [\"R\", \"G\", \"B\", \"A\"]); "
+        "default keeps every channel (R G B A first, then the rest sorted)."))
+    nonfinite: Literal["zero", "error", "keep"] = Field("zero", description=(
+        "What to do with NaN or infinite pixel values: 'zero' replaces them with 0 and warns "
+        "once per file, 'error' stops with an error naming the file, 'keep' passes them on."))
+
+    @field_validator("path")
+    @classmethod
+    def valid_path(cls, v: str) -> str:
+        return check_pattern(v)
+
+    @field_validator("channels")
+    @classmethod
+    def valid_channels(cls, v: tuple[str, ...] | None) -> tuple[str, ...] | None:
+        return check_channels(v)
+
+
+def _file_for(params: ReadParams, sample: Sample) -> str:
+    """The file to read at ``sample``; OpError for a fractional number on a sequence."""
+    pattern = sequence.parse(params.path)
+    if not pattern.is_sequence:
+        return pattern.prefix
+    number = axis_number(params.axis, sample)
+    if number.denominator != 1:
+        raise OpError(f"no file at fractional {params.axis} {number}: plates exist only at "
+                      f"integer {params.axis}s", file=params.path, field="axis",
+                      fix="feed this read into an in-between (vector) operator to get "
+                          "fractional samples, or ask for integer ones")
+    return pattern.format(int(number))
+
+
+def _frames(params: ReadParams, input_frames: Mapping[str, FrameRange | None]) -> FrameRange | None:
+    pattern = sequence.parse(params.path)
+    if not pattern.is_sequence:
+        if not os.path.isfile(pattern.prefix):
+            raise OpError("file not found", file=pattern.prefix, field="path",
+                          fix="check the path; a still needs the file itself, a sequence a "
+                              "frame token such as %04d")
+        return None  # a still has data at every frame
+    if params.axis == "view":
+        return None  # the files number views, not frames: the view range is a separate concern
+    first, last = sequence.contiguous_range(params.path, field="path")
+    return FrameRange(first, last)
+
+
+def _identity(params: ReadParams, sample: Sample) -> str:
+    try:
+        path = resolved(_file_for(params, sample))
+    except OpError:
+        return f"{params.path}|{params.axis}={axis_number(params.axis, sample)}|no file (fractional)"
+    try:
+        st = os.stat(path)
+    except OSError:
+        return f"{path}|missing"
+    return f"{path}|size={st.st_size}|mtime_ns={st.st_mtime_ns}"
+
+
+def _sources(params: ReadParams, sample: Sample) -> list[str]:
+    try:
+        return [resolved(_file_for(params, sample))]
+    except OpError:
+        return []
+
+
+def _missing_file_error(params: ReadParams, path: str, number: Any) -> OpError:
+    found = sequence.discover(params.path)
+    if found:
+        fix = (f"{params.axis}s on disk: {sequence.compact_ranges(found)}; ask only for those, "
+               "or render/copy the missing file")
+    else:
+        fix = f"no file matches {params.path!r}; check the folder and the frame token"
+    what = f"{params.axis} {number}" if sequence.is_sequence(params.path) else "still file"
+    return OpError(f"file not found for {what}", file=path, field="path", fix=fix)
+
+
+def _decode_colour(image: Image, transfer: str) -> Image:
+    """Decode R G B of an EXR from ``transfer`` to linear, unpremultiplying around it."""
+    idx = [image.index(c) for c in COLOR if c in image.channels]
+    if not idx:
+        return image
+    px = image.pixels.copy()
+    color = px[:, :, idx]
+    if image.has_alpha:
+        a = px[:, :, image.index("A")][:, :, None]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            straight = np.where(a > 0, color / a, 0.0)
+        color = tf.decode(transfer, straight.astype(np.float32)) * a
+    else:
+        color = tf.decode(transfer, color)
+    px[:, :, idx] = color
+    return image.replace(pixels=px)
+
+
+def read_file(path: str, *, transfer: str = "auto") -> Image:
+    """Read one file (EXR or raster by extension) as linear, premultiplied float32."""
+    if extension(path) in EXR_EXTENSIONS:
+        image = exr.read_exr(path)
+        if transfer not in ("auto", "linear"):
+            image = _decode_colour(image, transfer)
+        return image
+    return raster.read_raster(path, transfer=transfer)
+
+
+def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
+    path = _file_for(params, ctx.sample)
+    if not os.path.isfile(path):
+        raise _missing_file_error(params, path, axis_number(params.axis, ctx.sample))
+    image = read_file(path, transfer=params.transfer)
+
+    if params.channels is not None:
+        missing = [c for c in params.channels if c not in image.channels]
+        if missing:
+            raise OpError(f"channels {', '.join(missing)} not in the file; it has "
+                          f"{', '.join(image.channels)}", file=path, field="channels",
+                          fix="choose channels the file has, or leave 'channels' out")
+        image = image.select(params.channels)
+
+    if params.nonfinite != "keep":
+        bad = ~np.isfinite(image.pixels)
+        if bad.any():
+            count = int(bad.sum())
+            where = [c for i, c in enumerate(image.channels) if bad[:, :, i].any()]
+            if params.nonfinite == "error":
+                raise OpError(f"{count} NaN/infinite pixel value(s) in channels {', '.join(where)}",
+                              file=path, field="nonfinite",
+                              fix="fix the file, or set nonfinite to 'zero' (replace with 0) "
+                                  "or 'keep'")
+            ctx.warn(f"{path}: {count} NaN/infinite pixel value(s) in channels "
+                     f"{', '.join(where)} replaced by 0")
+            image = image.replace(pixels=np.where(bad, np.float32(0), image.pixels))
+
+    meta = dict(image.meta)
+    meta["source.path"] = os.path.abspath(path)
+    meta["source.axis"] = params.axis
+    meta["source.frame"] = (int(axis_number(params.axis, ctx.sample))
+                            if sequence.is_sequence(params.path) else None)
+    return image.replace(meta=meta)
+
+
+READ = Operator(
+    name="read",
+    version=1,
+    summary="Read an image sequence or still (EXR, PNG, TIFF, JPEG) as linear premultiplied float.",
+    params=ReadParams,
+    compute=_compute,
+    inputs=(),
+    doc=__doc__ or "",
+    outputs=("Every channel of the file (EXR: R G B A first, then layers such as fwd.x, conf, "
+             "sorted; PNG/TIFF/JPEG: R G B [A], grey files as R=G=B), float32, linear light, "
+             "premultiplied by A."),
+    identity=_identity,
+    frames=_frames,
+    disk_cache=False,  # re-reading the plate is cheaper than storing a copy of it
+    sources=_sources,
+)
