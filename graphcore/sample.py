@@ -4,9 +4,10 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from fractions import Fraction
+from collections.abc import Iterable
 from numbers import Rational
 
-__all__ = ["Sample", "as_fraction"]
+__all__ = ["Sample", "as_fraction", "compact_frames"]
 
 
 def as_fraction(value: int | str | Fraction | Rational) -> Fraction:
@@ -56,3 +57,17 @@ class Sample:
         if self.view:
             text += f" view {self.view}"
         return text
+
+
+def compact_frames(frames: Iterable[int]) -> str:
+    """Frame numbers as compact text: ``[1003, 1004, 1005, 1010] -> '1003-1005, 1010'``."""
+    nums = sorted(set(int(f) for f in frames))
+    runs: list[str] = []
+    i = 0
+    while i < len(nums):
+        j = i
+        while j + 1 < len(nums) and nums[j + 1] == nums[j] + 1:
+            j += 1
+        runs.append(str(nums[i]) if i == j else f"{nums[i]}-{nums[j]}")
+        i = j + 1
+    return ", ".join(runs)

@@ -19,6 +19,7 @@ from collections.abc import Sequence
 from graphcore import __version__
 from graphcore.errors import GraphErrors, InputError, MidframeError
 from graphcore.registry import FrameRange, PluginError, Registry
+from graphcore.sample import compact_frames
 
 __all__ = ["main", "build_parser"]
 
@@ -85,10 +86,13 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("ops", help="list operators, or show one")
     p.add_argument("name", nargs="?", help="operator to describe")
     p.add_argument("--markdown", action="store_true", help="the full operator reference as Markdown")
+    p.add_argument("--builtin", action="store_true", help="only the operators midframe itself ships")
     p.add_argument("--plugin", dest="plugins", action="append", default=[], metavar="MODULE:ATTR")
 
     p = sub.add_parser("schema", help="print the graph JSON Schema")
     p.add_argument("--out", metavar="FILE", help="write to FILE instead of standard output")
+    p.add_argument("--builtin", action="store_true", help="only the operators midframe itself ships "
+                   "(default: every installed operator, plugins included)")
 
     p = sub.add_parser("graph", help="draw a graph (DOT text; SVG/PNG with Graphviz)")
     _add_graph_args(p)
@@ -150,73 +154,36 @@ def loaded_nodes(path: str) -> str:
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from graphcore.cache import Cache, DiskCache, MemoryCache
     from graphcore.cli.progress import Progress
-    from graphcore.evaluate import Evaluator
-    from graphcore.execute import PoolExecutor, SerialExecutor
-    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
-    from graphcore.validate import load_graph
+    from graphcore.execute.render import render
 
     reg = _registry(args.plugins)
-    loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg)
-    _print_warnings(loaded.warnings)
-    graph = loaded.graph
-    disk = None
-    if args.cache:
-        try:
-            disk = DiskCache(args.cache)
-        except OSError as exc:
-            raise UsageError(f"cannot use cache folder: {exc.strerror}", file=args.cache, field="--cache",
-                             fix="name a writable folder") from None
-    cache = Cache(MemoryCache(args.memory << 20), disk)
-    ev = Evaluator(graph, reg, cache)
-    if not ev.sinks():
-        raise UsageError("nothing to render: the graph has no write node", file=graph.file, field="nodes",
-                         fix="add a write node")
-    frames = output_frames(ev, args.frames)
-    protected = protected_paths(ev)
-    ev.protected_paths = protected
-    tasks = make_tasks(ev, frames)
-    check_targets(ev, tasks, protected)
-    executor = SerialExecutor() if args.jobs == 1 else PoolExecutor(args.jobs, memory_bytes=args.memory << 20,
-                                                                      plugins=args.plugins)
-    log.info("rendering %d frames (%s-%s) of %d outputs with %d job(s)", len(frames), frames[0], frames[-1],
-             len(ev.sinks()), executor.jobs)
-    progress = Progress(len(tasks), quiet=args.quiet)
-    report = executor.run(ev, tasks, progress)
+    outcome = render(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, jobs=args.jobs,
+                     cache_dir=args.cache, memory_bytes=args.memory << 20, plugins=args.plugins, registry=reg,
+                     on_loaded=_print_warnings,
+                     on_start=lambda total: Progress(total, quiet=args.quiet))
+    report = outcome.report
     failed = report.failed
     if failed:
-        seen: dict[str, list[int]] = {}
+        by_message: dict[str, list[int]] = {}
         for r in failed:
-            seen.setdefault(r.message, []).append(r.frame)
-        for message, frames_failed in seen.items():
-            print(f"midframe: error: frames {_compact(frames_failed)}: {message}", file=sys.stderr)
-        print(f"midframe: {len(failed)} of {len(tasks)} frames failed: {_compact([r.frame for r in failed])}",
-              file=sys.stderr)
+            by_message.setdefault(r.message, []).append(r.frame)
+        for message, frames_failed in by_message.items():
+            print(f"midframe: error: frame(s) {compact_frames(frames_failed)}: {message}", file=sys.stderr)
+        print(f"midframe: {len(failed)} of {len(report.results)} frames failed: "
+              f"{compact_frames([r.frame for r in failed])}", file=sys.stderr)
         return report.exit_code
     done = len(report.results)
     print(f"midframe: rendered {done} frame{'s' if done != 1 else ''}", file=sys.stderr)
     return EXIT_OK
 
 
-def _compact(frames: Sequence[int]) -> str:
-    """1001,1002,1003,1007 -> '1001-1003, 1007'."""
-    fs = sorted(set(frames))
-    parts = []
-    i = 0
-    while i < len(fs):
-        j = i
-        while j + 1 < len(fs) and fs[j + 1] == fs[j] + 1:
-            j += 1
-        parts.append(str(fs[i]) if i == j else f"{fs[i]}-{fs[j]}")
-        i = j + 1
-    return ", ".join(parts)
-
-
 def cmd_ops(args: argparse.Namespace) -> int:
     from graphcore.cli.describe import describe_operator, operators_markdown
 
     reg = _registry(args.plugins)
+    if args.builtin:
+        reg = reg.builtin_only()
     good, bad = reg.load_all()
     if args.markdown:
         print(operators_markdown(good), end="")
@@ -245,7 +212,8 @@ def cmd_schema(args: argparse.Namespace) -> int:
     from graphcore.registry import default_registry
     from graphcore.schema.jsonschema import graph_json_schema
 
-    text = json.dumps(graph_json_schema(default_registry()), indent=2, sort_keys=True) + "\n"
+    reg = default_registry().builtin_only() if args.builtin else default_registry()
+    text = json.dumps(graph_json_schema(reg), indent=2, sort_keys=True) + "\n"
     if args.out:
         with open(args.out, "w") as fh:
             fh.write(text)

@@ -19,6 +19,7 @@ __all__ = ["Registry", "Operator", "Port", "OpContext", "FrameRange", "PluginErr
            "ENTRY_POINT_GROUP"]
 
 ENTRY_POINT_GROUP = "midframe.operators"
+BUILTIN_DISTRIBUTION = "midframe"
 log = logging.getLogger("midframe.registry")
 
 
@@ -74,6 +75,10 @@ class Registry:
     def add(self, op: Operator) -> None:
         self._loaded[op.name] = op
         self._found.setdefault(op.name, (Found(op.name, op.source or "(added)", ""), None))
+
+    def builtin_only(self) -> "Registry":
+        """A registry of just the operators the midframe distribution itself declares."""
+        return Registry({n: v for n, v in self._found.items() if v[0].distribution == BUILTIN_DISTRIBUTION})
 
     # -- lookup ---------------------------------------------------------------------------
     def names(self) -> list[str]:

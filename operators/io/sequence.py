@@ -24,6 +24,7 @@ from collections.abc import Iterable
 from dataclasses import dataclass
 
 from graphcore.errors import OpError
+from graphcore.sample import compact_frames
 
 __all__ = ["SequencePattern", "parse", "format_path", "is_sequence", "discover",
            "compact_ranges", "missing_frames", "contiguous_range"]
@@ -132,16 +133,7 @@ def discover(pattern: str) -> list[int]:
 
 def compact_ranges(frames: Iterable[int]) -> str:
     """Frame numbers as compact text: ``[1003, 1004, 1005, 1010] -> '1003-1005, 1010'``."""
-    nums = sorted(set(int(f) for f in frames))
-    runs: list[str] = []
-    i = 0
-    while i < len(nums):
-        j = i
-        while j + 1 < len(nums) and nums[j + 1] == nums[j] + 1:
-            j += 1
-        runs.append(str(nums[i]) if i == j else f"{nums[i]}-{nums[j]}")
-        i = j + 1
-    return ", ".join(runs)
+    return compact_frames(frames)
 
 
 def missing_frames(frames: Iterable[int]) -> list[int]:
