@@ -314,6 +314,12 @@ def load_graph(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iter
                                          field=f"{base}.inputs.{p.name}",
                                          fix=f'add "inputs": {{"{p.name}": "<node id>"}}'
                                              + (f" ({p.doc})" if p.doc else "")))
+        if params is not None and op.check_links is not None:
+            connected = frozenset(port for port in ns.inputs if op.port(port) is not None)
+            for problem in op.check_links(params, connected):
+                errors.append(GraphError(problem.message, file=file, node_id=nid,
+                                         field=f"{base}." + ("inputs." if op.port(problem.field or "") else "params.")
+                                         + (problem.field or ""), fix=problem.fix))
         if params is not None:
             nodes[nid] = Node(nid, op.name, params, dict(ns.inputs))
             resolved_doc[nid] = {"op": op.name, "params": params.model_dump(mode="json"),

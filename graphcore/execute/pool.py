@@ -13,16 +13,20 @@ import math
 import multiprocessing as mp
 import os
 from collections import Counter
+import logging
 from concurrent.futures import ProcessPoolExecutor, as_completed
+from concurrent.futures.process import BrokenProcessPool
 from typing import Any
 
 from graphcore.cache import Cache, DiskCache, MemoryCache
+from graphcore.errors import MidframeError
 from graphcore.evaluate import Evaluator
 from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, render_task
 
 __all__ = ["PoolExecutor"]
 
 _worker: dict[str, Any] = {}
+log = logging.getLogger("midframe.render")
 
 
 def _init_worker(payload: dict[str, Any]) -> None:
@@ -32,6 +36,10 @@ def _init_worker(payload: dict[str, Any]) -> None:
     import cv2
 
     cv2.setNumThreads(threads)
+    import logging
+
+    # operator warnings travel back in FrameResult.warnings and are logged once by the parent
+    logging.getLogger("midframe.render").setLevel(logging.ERROR)
     from graphcore.registry import Registry
     from graphcore.validate import graph_from_source
 
@@ -70,18 +78,28 @@ class PoolExecutor:
         chunks = [tasks[i:i + size] for i in range(0, len(tasks), size)]
         order = {id(t): i for i, t in enumerate(tasks)}
         ctx = mp.get_context("forkserver")
-        with ProcessPoolExecutor(max_workers=min(self.jobs, len(chunks)), mp_context=ctx,
-                                 initializer=_init_worker, initargs=(payload,)) as pool:
-            futures = [pool.submit(_run_chunk, c) for c in chunks]
-            collected: list[FrameResult] = []
-            calls: Counter[str] = Counter()
-            for fut in as_completed(futures):
-                results, chunk_calls = fut.result()
-                calls.update(chunk_calls)
-                for r in results:
-                    collected.append(r)
-                    if on_result is not None:
-                        on_result(r)
+        collected: list[FrameResult] = []
+        calls: Counter[str] = Counter()
+        warned: set[str] = set()
+        try:
+            with ProcessPoolExecutor(max_workers=min(self.jobs, len(chunks)), mp_context=ctx,
+                                     initializer=_init_worker, initargs=(payload,)) as pool:
+                futures = [pool.submit(_run_chunk, c) for c in chunks]
+                for fut in as_completed(futures):
+                    results, chunk_calls = fut.result()
+                    calls.update(chunk_calls)
+                    for r in results:
+                        for w in r.warnings:
+                            if w not in warned:
+                                warned.add(w)
+                                log.warning("%s", w)
+                        collected.append(r)
+                        if on_result is not None:
+                            on_result(r)
+        except BrokenProcessPool as exc:
+            raise MidframeError(f"a worker process died ({exc}); {len(collected)} of {len(tasks)} frames "
+                                "finished. Out of memory is the usual cause: try fewer --jobs or a smaller "
+                                "--memory") from None
         del order
         collected.sort(key=lambda r: (r.node_id, r.frame))
         report.results = collected

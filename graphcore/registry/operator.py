@@ -13,6 +13,8 @@ An operator never touches the cache, the graph or the command line. The evaluato
   inputs' ranges (``read`` discovers it on disk). Default: the intersection of connected inputs.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
 - ``targets(params, frames)``: files a sink writes for those frames (overwrite guard, resume).
+- ``check_links(params, connected)``: problems (``OpError`` objects, returned, not raised) that
+  depend on which ports are connected, so ``midframe check`` finds them before any render.
 
 Registration checks the declaration at once (``Operator.__post_init__``); a bad declaration is a
 ``PluginError`` carrying the operator name.
@@ -142,7 +144,8 @@ class Operator:
         Longer help for ``midframe ops NAME``: what the channels are, references.
     outputs : str
         Words on the output channels.
-    needs, identity, frames, sources, targets : optional callables, see the module docstring.
+    needs, identity, frames, sources, targets, check_links : optional callables, see the module
+        docstring.
     sink : bool
         True for operators that write files (``write``); the CLI renders every sink.
     cacheable : bool
@@ -164,6 +167,7 @@ class Operator:
     frames: Callable[[Any, Mapping[str, FrameRange | None]], FrameRange | None] | None = None
     sources: Callable[[Any, Sample], Sequence[str]] | None = None
     targets: Callable[[Any, Sequence[int]], Sequence[str]] | None = None
+    check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
     sink: bool = False
     cacheable: bool = True
     disk_cache: bool = True  # False for results cheaper to recompute than to store (``read``)

@@ -136,6 +136,40 @@ def _time_dissolve(a: Image | tuple[Image, ...] | None, ctx: OpContext) -> Image
     return _weighted([("a", lo), ("a", hi)], [1.0 - t, t], normalize=False)
 
 
+
+def link_problems(params: BlendParams, connected: frozenset[str]) -> list[OpError]:
+    """Problems that depend on which ports are connected (also run by ``midframe check``)."""
+    names = [p for p in PORTS if p in connected]
+    if params.mode == "time-dissolve":
+        extra = names[1:] if names[:1] == ["a"] else [n for n in names if n != "a"]
+        if extra:
+            return [OpError(
+                f"mode 'time-dissolve' reads only 'a', but {', '.join(extra)} "
+                f"{'is' if len(extra) == 1 else 'are'} connected",
+                field=extra[0],
+                fix="disconnect the extra inputs, or use mode 'mix' to blend several images",
+            )]
+        if "a" not in connected:
+            return [OpError("input 'a' is not connected", field="a", fix="connect the clip to dissolve to 'a'")]
+        return []
+    if "a" not in connected:
+        return [OpError("input 'a' is not connected", field="a", fix="connect an image to 'a'")]
+    if params.mix is not None and names != ["a", "b"]:
+        return [OpError(
+            f"'mix' is a two-input cross-dissolve of 'a' and 'b', but the connected inputs "
+            f"are {', '.join(names)}",
+            field="mix",
+            fix="connect exactly 'a' and 'b', or give 'weights' (one per connected input) instead of 'mix'",
+        )]
+    if params.mix is None and params.weights is not None and len(params.weights) != len(names):
+        return [OpError(
+            f"{len(params.weights)} weights given for {len(names)} connected inputs "
+            f"({', '.join(names)})",
+            field="weights",
+            fix=f"give exactly {len(names)} weights, one per connected input in port order",
+        )]
+    return []
+
 def blend(params: BlendParams, inputs: Mapping[str, Image | tuple[Image, ...] | None],
           ctx: OpContext) -> Image:
     """Weighted mix of the connected inputs, or a time cross-dissolve of ``a``.
@@ -172,39 +206,17 @@ def blend(params: BlendParams, inputs: Mapping[str, Image | tuple[Image, ...] | 
     Mixing vector channels averages motion, which is rarely meaningful; blend them only when
     that is what is wanted.
     """
+    problems = link_problems(params, frozenset(p for p in PORTS if inputs.get(p) is not None))
+    if problems:
+        raise problems[0]
     if params.mode == "time-dissolve":
-        extra = [p for p in PORTS[1:] if inputs.get(p) is not None]
-        if extra:
-            raise OpError(
-                f"mode 'time-dissolve' reads only 'a', but {', '.join(extra)} "
-                f"{'is' if len(extra) == 1 else 'are'} connected",
-                field=extra[0],
-                fix="disconnect the extra inputs, or use mode 'mix' to blend several images",
-            )
         return _time_dissolve(inputs.get("a"), ctx)
 
     connected = [(p, inputs[p]) for p in PORTS if inputs.get(p) is not None]
-    if not connected or connected[0][0] != "a":
-        raise OpError("input 'a' is not connected", field="a", fix="connect an image to 'a'")
-    names = [p for p, _ in connected]
     if params.mix is not None:
-        if names != ["a", "b"]:
-            raise OpError(
-                f"'mix' is a two-input cross-dissolve of 'a' and 'b', but the connected inputs "
-                f"are {', '.join(names)}",
-                field="mix",
-                fix="connect exactly 'a' and 'b', or give 'weights' (one per connected input) instead of 'mix'",
-            )
         weights: Sequence[float] = (1.0 - params.mix, params.mix)
     elif params.weights is not None:
         weights = params.weights
-        if len(weights) != len(connected):
-            raise OpError(
-                f"{len(weights)} weights given for {len(connected)} connected inputs "
-                f"({', '.join(names)})",
-                field="weights",
-                fix=f"give exactly {len(connected)} weights, one per connected input in port order",
-            )
     else:
         weights = (1.0,) * len(connected)
     return _weighted(connected, weights, params.normalize)  # type: ignore[arg-type]
@@ -241,6 +253,7 @@ BLEND = Operator(
         Port("d", "fourth image", optional=True),
     ),
     doc=DOC,
+    check_links=link_problems,
     outputs="the channels of 'a', each the weighted mix of the inputs' same channel",
     needs=blend_needs,
 )

@@ -191,13 +191,9 @@ def matte_composite(params: MatteCompositeParams, inputs: Mapping[str, Image | N
         matte = _matte_plane(matte_img, ctx)
 
     if params.operation in ONE_INPUT:
-        if b is not None:
-            raise OpError(
-                f"operation '{params.operation}' takes only 'a' (and optionally 'matte'), "
-                "but 'b' is connected",
-                field="b",
-                fix=f"disconnect 'b', or choose a two-input operation instead of '{params.operation}'",
-            )
+        problems = link_problems(params, frozenset({"a"} | ({"b"} if b is not None else set())))
+        if problems:
+            raise problems[0]
         return _one_input(params, a, matte, ctx)
 
     if b is not None:
@@ -248,6 +244,18 @@ copied unchanged from 'a' where a has it, else from 'b'.
 Inputs must share one resolution; otherwise add a `resize` node. Metadata comes from 'a'.
 """
 
+
+def link_problems(params: MatteCompositeParams, connected: frozenset[str]) -> list[OpError]:
+    """Problems that depend on which ports are connected (also run by ``midframe check``)."""
+    if params.operation in ONE_INPUT and "b" in connected:
+        return [OpError(
+            f"operation '{params.operation}' takes only 'a' (and optionally 'matte'), "
+            "but 'b' is connected",
+            field="b",
+            fix=f"disconnect 'b', or choose a two-input operation instead of '{params.operation}'",
+        )]
+    return []
+
 MATTE_COMPOSITE = Operator(
     name="matte-composite",
     version=1,
@@ -262,6 +270,7 @@ MATTE_COMPOSITE = Operator(
              optional=True),
     ),
     doc=DOC,
+    check_links=link_problems,
     outputs=("R G B present in either input, then A (always), then the non-colour channels of a, "
              "then those only b has (copied, not composited)"),
 )

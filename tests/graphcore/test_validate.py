@@ -214,3 +214,18 @@ def test_broken_plugin_is_a_hard_error_naming_the_node(registry):
     doc = graph_doc({"g": {"op": "ghost"}, "out": {"op": "test-collect", "inputs": {"image": "g"}}})
     e = _one(_errors(registry, doc), node_id="g", field="nodes.g.op")
     assert "ghost-dist" in e.message and "unavailable" in e.message
+
+
+def test_link_dependent_problems_found_by_check(registry):
+    """Operators' check_links hook: problems that depend on what is connected show before a render."""
+    doc = graph_doc({"a": {"op": "test-const"}, "b": {"op": "test-const"},
+                     "pm": {"op": "matte-composite", "params": {"operation": "premultiply"},
+                            "inputs": {"a": "a", "b": "b"}},
+                     "mix": {"op": "blend", "params": {"weights": [1, 2, 3]}, "inputs": {"a": "a", "b": "b"}},
+                     "out": {"op": "test-collect", "inputs": {"image": "pm"}},
+                     "out2": {"op": "test-collect", "params": {"tag": "x"}, "inputs": {"image": "mix"}}})
+    errs = _errors(registry, doc)
+    e = _one(errs, node_id="pm", field="nodes.pm.inputs.b")
+    assert "premultiply" in e.message and e.fix
+    e = _one(errs, node_id="mix", field="nodes.mix.params.weights")
+    assert "3 weights given for 2 connected inputs" in e.message
