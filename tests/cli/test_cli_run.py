@@ -156,7 +156,8 @@ def test_size_mismatch_suggests_resize(tmp_path):
     assert "resize" in err and "node 'comp'" in err and "40x30" in err.replace(" ", "").replace("×", "x")
 
 
-def test_nonfinite_pixels_replaced_with_zero_and_warned_once(tmp_path):
+@pytest.mark.parametrize("jobs", ["1", "2"])
+def test_nonfinite_pixels_replaced_with_zero_and_warned_once(tmp_path, jobs):
     from operators.io.exr import write_exr
 
     _comp_inputs(tmp_path, n=3)
@@ -166,7 +167,7 @@ def test_nonfinite_pixels_replaced_with_zero_and_warned_once(tmp_path):
         px[0, 0, 0], px[1, 1, 1] = np.nan, np.inf
         write_exr(str(tmp_path / f"fg.{f:04d}.exr"), img.replace(pixels=px), default_pixel_type="float")
     proc = cli_proc("run", str(GRAPHS / "over.json"), "--set", f"fg={tmp_path}/fg.%04d.exr", "--set",
-                    f"bg={tmp_path}/bg.%04d.exr", "--set", f"dst={tmp_path}/o/c.%04d.exr", "-q")
+                    f"bg={tmp_path}/bg.%04d.exr", "--set", f"dst={tmp_path}/o/c.%04d.exr", "-q", "--jobs", jobs)
     rc, err = proc.returncode, proc.stderr
     assert rc == 0, err
     assert err.count("fg.0001.exr") == 1 and err.count("fg.0002.exr") == 1  # once per file

@@ -15,51 +15,40 @@ import pytest
 
 from graphcore.errors import OpError
 from graphcore.image import Image
-from graphcore.registry.operator import OpContext
 from graphcore.sample import Sample
 from operators.composite.blend import BLEND, BlendParams, blend_needs
+from tests.conftest import noise_image
+from tests.operators.conftest import const_image, op_runner, run_op
 
-RGBA = ("R", "G", "B", "A")
-
-
-def const(value, shape=(3, 4), channels=RGBA):
-    return Image(np.full((*shape, len(channels)), value, np.float32), channels)
-
-
-def run(inputs, sample=Sample(1), **params):
-    full = {"a": None, "b": None, "c": None, "d": None, **inputs}
-    return BLEND.compute(BlendParams(**params), full, OpContext(sample))
+run = op_runner(BLEND)
 
 
 def test_equal_weights_average():
-    out = run({"a": const(1.0), "b": const(3.0), "c": const(5.0)})
+    out = run({"a": const_image(1.0), "b": const_image(3.0), "c": const_image(5.0)})
     np.testing.assert_allclose(out.pixels, 3.0, rtol=1e-7)
 
 
 @pytest.mark.parametrize("normalize, expected", [(True, 3.0), (False, 12.0)])
 def test_weights_known_answer(normalize, expected):
     # (1*1 + 2*3 + 1*5) = 12; / (1 + 2 + 1) = 3.
-    out = run({"a": const(1.0), "b": const(3.0), "c": const(5.0)},
+    out = run({"a": const_image(1.0), "b": const_image(3.0), "c": const_image(5.0)},
               weights=[1, 2, 1], normalize=normalize)
     np.testing.assert_allclose(out.pixels, expected, rtol=1e-7)
 
 
 def test_weights_skip_unconnected_ports():
     # a and c connected: weights (1, 3) -> (1*1 + 3*5) / 4 = 4.
-    out = run({"a": const(1.0), "c": const(5.0)}, weights=[1, 3])
+    out = run({"a": const_image(1.0), "c": const_image(5.0)}, weights=[1, 3])
     np.testing.assert_allclose(out.pixels, 4.0, rtol=1e-7)
 
 
 def test_single_input_passes_through_exactly():
-    rng = np.random.default_rng(0)
-    a = Image(rng.random((5, 6, 4)).astype(np.float32), RGBA)
+    a = noise_image(5, 6, seed=0)
     assert np.array_equal(run({"a": a}).pixels, a.pixels)
 
 
 def test_cross_dissolve_mix():
-    rng = np.random.default_rng(1)
-    a = Image(rng.random((5, 6, 4)).astype(np.float32), RGBA)
-    b = Image(rng.random((5, 6, 4)).astype(np.float32), RGBA)
+    a, b = noise_image(5, 6, seed=1), noise_image(5, 6, seed=2)
     out = run({"a": a, "b": b}, mix=0.25)
     np.testing.assert_allclose(out.pixels, 0.75 * a.pixels + 0.25 * b.pixels, rtol=1e-6, atol=1e-7)
     assert np.array_equal(run({"a": a, "b": b}, mix=0.0).pixels, a.pixels)
@@ -67,8 +56,8 @@ def test_cross_dissolve_mix():
 
 
 def test_channel_order_may_differ():
-    a = Image(np.dstack([np.full((2, 2), 1.0), np.full((2, 2), 2.0)]).astype(np.float32), ("R", "A"))
-    b = Image(np.dstack([np.full((2, 2), 4.0), np.full((2, 2), 3.0)]).astype(np.float32), ("A", "R"))
+    a = const_image([1.0, 2.0], (2, 2), ("R", "A"))
+    b = const_image([4.0, 3.0], (2, 2), ("A", "R"))
     out = run({"a": a, "b": b})
     assert out.channels == ("R", "A")
     np.testing.assert_allclose(out.channel("R"), 2.0)
@@ -79,10 +68,10 @@ def test_channel_order_may_differ():
 
 def test_mix_needs_exactly_a_and_b():
     with pytest.raises(OpError) as err:
-        run({"a": const(1.0), "b": const(2.0), "c": const(3.0)}, mix=0.5)
+        run({"a": const_image(1.0), "b": const_image(2.0), "c": const_image(3.0)}, mix=0.5)
     assert err.value.field == "mix" and err.value.fix
     with pytest.raises(OpError):
-        run({"a": const(1.0)}, mix=0.5)
+        run({"a": const_image(1.0)}, mix=0.5)
 
 
 def test_mix_and_weights_together_are_refused():
@@ -98,14 +87,14 @@ def test_zero_weight_sum_with_normalize_is_refused():
 
 def test_wrong_number_of_weights():
     with pytest.raises(OpError) as err:
-        run({"a": const(1.0), "b": const(2.0)}, weights=[1, 2, 3])
+        run({"a": const_image(1.0), "b": const_image(2.0)}, weights=[1, 2, 3])
     assert err.value.field == "weights"
     assert "3 weights" in str(err.value) and "2 connected" in str(err.value)
 
 
 def test_channel_mismatch_names_ports_and_channels():
     with pytest.raises(OpError) as err:
-        run({"a": const(1.0), "b": const(1.0, channels=("R", "G", "B"))})
+        run({"a": const_image(1.0), "b": const_image(1.0, channels=("R", "G", "B"))})
     assert err.value.field == "b"
     text = str(err.value)
     assert "'a'" in text and "'b'" in text and "R, G, B, A" in text and "only in 'a': A" in text
@@ -113,7 +102,7 @@ def test_channel_mismatch_names_ports_and_channels():
 
 def test_size_mismatch_suggests_resize():
     with pytest.raises(OpError) as err:
-        run({"a": const(1.0, (3, 4)), "b": const(1.0, (6, 8))})
+        run({"a": const_image(1.0, (3, 4)), "b": const_image(1.0, (6, 8))})
     assert err.value.field == "b" and "resize" in err.value.fix
     assert "4x3" in str(err.value) and "8x6" in str(err.value)
 
@@ -147,7 +136,7 @@ def test_time_dissolve_integer_frame_is_bit_for_bit():
     rng = np.random.default_rng(2)
     a = Image(rng.standard_normal((4, 5, 6)).astype(np.float32),
               ("R", "G", "B", "A", "fwd.x", "fwd.y"), {"source.frame": 1001})
-    out = BLEND.compute(td(), {"a": (a,), "b": None, "c": None, "d": None}, OpContext(Sample(1001)))
+    out = run_op(BLEND, td(), {"a": (a,)}, sample=Sample(1001))
     assert np.array_equal(out.pixels, a.pixels) and out.channels == a.channels
     assert out.meta["source.frame"] == 1001
 
@@ -155,19 +144,15 @@ def test_time_dissolve_integer_frame_is_bit_for_bit():
 @pytest.mark.parametrize("t", [Fraction(1, 3), Fraction(1, 2), Fraction(999, 1000)])
 def test_time_dissolve_fraction_is_weighted_mix(t):
     # Baker et al. 2011 cross-dissolve baseline: (1 - t) * I0 + t * I1.
-    rng = np.random.default_rng(3)
-    i0 = Image(rng.random((4, 5, 4)).astype(np.float32), RGBA)
-    i1 = Image(rng.random((4, 5, 4)).astype(np.float32), RGBA)
-    out = BLEND.compute(td(), {"a": (i0, i1), "b": None, "c": None, "d": None},
-                        OpContext(Sample(12 + t)))
+    i0, i1 = noise_image(4, 5, seed=3), noise_image(4, 5, seed=4)
+    out = run_op(BLEND, td(), {"a": (i0, i1)}, sample=Sample(12 + t))
     expected = (1 - float(t)) * i0.pixels.astype(np.float64) + float(t) * i1.pixels
     np.testing.assert_allclose(out.pixels, expected, rtol=1e-6, atol=1e-7)
 
 
 def test_time_dissolve_refuses_other_inputs_and_mix_params():
     with pytest.raises(OpError) as err:
-        BLEND.compute(td(), {"a": (const(1.0),), "b": const(1.0), "c": None, "d": None},
-                      OpContext(Sample(1)))
+        run_op(BLEND, td(), {"a": (const_image(1.0),), "b": const_image(1.0)})
     assert err.value.field == "b"
     with pytest.raises(pydantic.ValidationError):
         td(mix=0.5)
@@ -175,8 +160,8 @@ def test_time_dissolve_refuses_other_inputs_and_mix_params():
 
 def test_time_dissolve_frames_of_different_size():
     with pytest.raises(OpError) as err:
-        BLEND.compute(td(), {"a": (const(1.0, (3, 4)), const(1.0, (4, 4))), "b": None, "c": None,
-                             "d": None}, OpContext(Sample(Fraction(1, 2))))
+        run_op(BLEND, td(), {"a": (const_image(1.0, (3, 4)), const_image(1.0, (4, 4)))},
+               sample=Sample(Fraction(1, 2)))
     assert "resize" in err.value.fix
 
 

@@ -14,24 +14,13 @@ import pytest
 from graphcore.errors import OpError
 from graphcore.image import Image
 from operators.io import exr
+from tests.operators.conftest import RGBA, const_image, read_raw_exr, truncated_copy, write_raw_exr
 
 # Lossless in the OpenEXR format description (Technical Introduction: none, rle, zips, zip,
 # piz) plus those measured lossless here on random half/float/uint data with OpenEXR 3.5.3
 # (zstd, htj2k256, htj2k32, lj2k). pxr24 is lossless for half and uint only.
 LOSSLESS = ["none", "rle", "zips", "zip", "piz", "zstd", "htj2k256", "htj2k32", "lj2k"]
 LOSSY = ["pxr24", "b44", "b44a", "dwaa", "dwab"]
-
-
-def _raw(path):
-    """Channel name -> raw numpy array, straight from OpenEXR.File."""
-    f = OpenEXR.File(str(path), separate_channels=True)
-    return {n: c.pixels for n, c in f.channels().items()}, f.header()
-
-
-def _write_raw(path, channels, header=None):
-    hdr = {"type": OpenEXR.scanlineimage, "compression": OpenEXR.ZIP_COMPRESSION}
-    hdr.update(header or {})
-    OpenEXR.File(hdr, {k: v.copy() for k, v in channels.items()}).write(str(path))
 
 
 def _all_half_bits():
@@ -55,12 +44,12 @@ def test_half_float_uint_round_trip_bit_exact(tmp_path):
     flt = _float_bits(rng, half.shape)
     uint = rng.integers(0, 2**24, size=half.shape, dtype=np.uint32)  # exact in float32
     src, dst = tmp_path / "src.exr", tmp_path / "dst.exr"
-    _write_raw(src, {"R": half, "Z": flt, "id": uint})
+    write_raw_exr(src, {"R": half, "Z": flt, "id": uint})
 
     img = exr.read_exr(str(src))
     assert img.meta["exr.pixel_types"] == {"R": "half", "Z": "float", "id": "uint"}
     exr.write_exr(str(dst), img, pixel_types=img.meta["exr.pixel_types"])
-    raw, _ = _raw(dst)
+    raw, _ = read_raw_exr(dst)
     assert raw["R"].dtype == np.float16 and raw["Z"].dtype == np.float32
     assert raw["id"].dtype == np.uint32
     np.testing.assert_array_equal(raw["R"].view(np.uint16), half.view(np.uint16))
@@ -72,7 +61,7 @@ def test_half_overflow_warns(tmp_path):
     img = Image(np.array([[[1.0, 70000.0]]], np.float32), ("R", "G"))
     warnings = []
     exr.write_exr(str(tmp_path / "o.exr"), img, pixel_types="half", warn=warnings.append)
-    raw, _ = _raw(tmp_path / "o.exr")
+    raw, _ = read_raw_exr(tmp_path / "o.exr")
     assert np.isinf(raw["G"][0, 0]) and raw["R"][0, 0] == 1.0
     assert len(warnings) == 1 and "'G'" in warnings[0]
 
@@ -82,13 +71,13 @@ def test_layers_preserved_and_ordered(tmp_path):
     rng = np.random.default_rng(1)
     names = ["fwd.y", "diffuse.R", "A", "conf", "B", "fwd.x", "R", "G"]
     planes = {n: rng.random((6, 9)).astype(np.float32) for n in names}
-    _write_raw(tmp_path / "l.exr", planes)
+    write_raw_exr(tmp_path / "l.exr", planes)
     img = exr.read_exr(str(tmp_path / "l.exr"))
     assert img.channels == ("R", "G", "B", "A", "conf", "diffuse.R", "fwd.x", "fwd.y")
     for n in names:
         np.testing.assert_array_equal(img.channel(n), planes[n])
     exr.write_exr(str(tmp_path / "o.exr"), img, pixel_types="float")
-    raw, _ = _raw(tmp_path / "o.exr")
+    raw, _ = read_raw_exr(tmp_path / "o.exr")
     assert set(raw) == set(names)
     for n in names:
         np.testing.assert_array_equal(raw[n], planes[n])
@@ -136,13 +125,13 @@ def test_header_attributes_round_trip(tmp_path):
     # OpenEXR header attributes (Technical Introduction / file layout): each attribute must come
     # back with the same type and value after read_exr -> write_exr.
     px = {"R": np.ones((4, 5), np.float16)}
-    _write_raw(tmp_path / "a.exr", px, _rich_header())
-    _, original = _raw(tmp_path / "a.exr")
+    write_raw_exr(tmp_path / "a.exr", px, _rich_header())
+    _, original = read_raw_exr(tmp_path / "a.exr")
     img = exr.read_exr(str(tmp_path / "a.exr"))
     json.dumps(dict(img.meta))  # meta must be JSON-able
     assert "exr.dropped_attributes" not in img.meta
     exr.write_exr(str(tmp_path / "b.exr"), img, attributes=img.meta["exr.attributes"])
-    _, again = _raw(tmp_path / "b.exr")
+    _, again = read_raw_exr(tmp_path / "b.exr")
     for name in _rich_header():
         assert name in again, name
         assert _same_attribute(original[name], again[name]), (name, original[name], again[name])
@@ -164,8 +153,8 @@ def test_plain_attribute_forms():
 
 
 def test_uncarried_attributes_are_listed(tmp_path):
-    _write_raw(tmp_path / "p.exr", {"R": np.ones((4, 4), np.float16)},
-               {"preview": OpenEXR.PreviewImage(2, 2)})
+    write_raw_exr(tmp_path / "p.exr", {"R": np.ones((4, 4), np.float16)},
+                  {"preview": OpenEXR.PreviewImage(2, 2)})
     img = exr.read_exr(str(tmp_path / "p.exr"))
     assert img.meta["exr.dropped_attributes"] == ["preview"]
     assert "preview" not in img.meta["exr.attributes"]
@@ -176,11 +165,11 @@ def test_lossless_compressions_round_trip(tmp_path, name):
     rng = np.random.default_rng(2)
     half = (rng.standard_normal((33, 47)) * 4).astype(np.float16)
     flt = _float_bits(rng, (33, 47))
-    _write_raw(tmp_path / "s.exr", {"R": half, "Z": flt})
+    write_raw_exr(tmp_path / "s.exr", {"R": half, "Z": flt})
     img = exr.read_exr(str(tmp_path / "s.exr"))
     exr.write_exr(str(tmp_path / "c.exr"), img, pixel_types=img.meta["exr.pixel_types"],
                   compression=name)
-    raw, header = _raw(tmp_path / "c.exr")
+    raw, header = read_raw_exr(tmp_path / "c.exr")
     assert header["compression"].name == exr.COMPRESSIONS[name]
     np.testing.assert_array_equal(raw["R"].view(np.uint16), half.view(np.uint16))
     np.testing.assert_array_equal(raw["Z"].view(np.uint32), flt.view(np.uint32))
@@ -190,7 +179,7 @@ def test_lossless_compressions_round_trip(tmp_path, name):
 @pytest.mark.parametrize("name", [c for c in LOSSY if c in exr.available_compressions()])
 def test_lossy_compressions_load(tmp_path, name):
     rng = np.random.default_rng(3)
-    img = Image(rng.random((32, 48, 4)).astype(np.float16).astype(np.float32), ("R", "G", "B", "A"))
+    img = Image(rng.random((32, 48, 4)).astype(np.float16).astype(np.float32), RGBA)
     exr.write_exr(str(tmp_path / "c.exr"), img, compression=name)
     back = exr.read_exr(str(tmp_path / "c.exr"))
     assert back.channels == img.channels and back.size == img.size
@@ -200,7 +189,7 @@ def test_lossy_compressions_load(tmp_path, name):
 
 def test_unavailable_compression_is_an_op_error(tmp_path, monkeypatch):
     monkeypatch.setitem(exr.COMPRESSIONS, "future", "FUTURE_COMPRESSION")
-    img = Image(np.zeros((2, 2, 1), np.float32), ("R",))
+    img = const_image(0.0, (2, 2), ("R",))
     with pytest.raises(OpError) as info:
         exr.write_exr(str(tmp_path / "x.exr"), img, compression="future")
     assert info.value.field == "compression" and "zip" in info.value.fix
@@ -211,35 +200,35 @@ def test_windows_kept_when_sizes_match(tmp_path):
     dw = (np.array([10, 20], np.int32), np.array([13, 22], np.int32))
     disp = (np.array([0, 0], np.int32), np.array([99, 49], np.int32))
     px = np.arange(12, dtype=np.float32).reshape(3, 4)
-    _write_raw(tmp_path / "w.exr", {"R": px}, {"dataWindow": dw, "displayWindow": disp})
+    write_raw_exr(tmp_path / "w.exr", {"R": px}, {"dataWindow": dw, "displayWindow": disp})
     img = exr.read_exr(str(tmp_path / "w.exr"))
     assert img.size == (4, 3)
     assert img.meta["exr.data_window"] == [10, 20, 13, 22]
     assert img.meta["exr.display_window"] == [0, 0, 99, 49]
     np.testing.assert_array_equal(img.channel("R"), px)
     exr.write_exr(str(tmp_path / "o.exr"), img)
-    _, h = _raw(tmp_path / "o.exr")
+    _, h = read_raw_exr(tmp_path / "o.exr")
     assert [*h["dataWindow"][0], *h["dataWindow"][1]] == [10, 20, 13, 22]
     assert [*h["displayWindow"][0], *h["displayWindow"][1]] == [0, 0, 99, 49]
 
     # A different size (e.g. after a resize) gets default windows.
-    smaller = Image(np.zeros((2, 2, 1), np.float32), ("R",), img.meta)
+    smaller = const_image(0.0, (2, 2), ("R",), img.meta)
     exr.write_exr(str(tmp_path / "s.exr"), smaller)
-    _, h = _raw(tmp_path / "s.exr")
+    _, h = read_raw_exr(tmp_path / "s.exr")
     assert [*h["dataWindow"][0], *h["dataWindow"][1]] == [0, 0, 1, 1]
     assert [*h["displayWindow"][0], *h["displayWindow"][1]] == [0, 0, 1, 1]
 
 
 def test_caller_array_not_replaced(tmp_path):
     # OpenEXR.File replaces arrays in the dict it is given; our writer must not touch the Image.
-    img = Image(np.ones((3, 3, 2), np.float32), ("R", "G"))
+    img = const_image(1.0, (3, 3), ("R", "G"))
     before = img.pixels.copy()
     exr.write_exr(str(tmp_path / "o.exr"), img)
     np.testing.assert_array_equal(img.pixels, before)
 
 
 def test_provenance_helper(tmp_path):
-    img = Image(np.zeros((2, 2, 1), np.float32), ("R",))
+    img = const_image(0.0, (2, 2), ("R",))
     exr.write_exr(str(tmp_path / "plain.exr"), img)
     assert exr.read_provenance(str(tmp_path / "plain.exr")) is None
     record = {"tool": "midframe", "frame": "1001"}
@@ -249,18 +238,15 @@ def test_provenance_helper(tmp_path):
 
 
 # -- bad files ---------------------------------------------------------------------------------------
-def _good_bytes(tmp_path):
+def _good_file(tmp_path):
     rng = np.random.default_rng(4)
-    _write_raw(tmp_path / "g.exr", {"R": rng.random((64, 64)).astype(np.float16),
-                                    "G": rng.random((64, 64)).astype(np.float16)})
-    return (tmp_path / "g.exr").read_bytes()
+    return write_raw_exr(tmp_path / "g.exr", {"R": rng.random((64, 64)).astype(np.float16),
+                                              "G": rng.random((64, 64)).astype(np.float16)})
 
 
 @pytest.mark.parametrize("fraction", [0.05, 0.5, 0.97])
 def test_truncated_file_is_an_op_error(tmp_path, fraction):
-    data = _good_bytes(tmp_path)
-    bad = tmp_path / "t.exr"
-    bad.write_bytes(data[: int(len(data) * fraction)])
+    bad = truncated_copy(_good_file(tmp_path), tmp_path / "t.exr", keep=fraction)
     with pytest.raises(OpError) as info:
         exr.read_exr(str(bad))
     assert info.value.file == str(bad) and info.value.fix

@@ -8,6 +8,7 @@ from graphcore.errors import OpError
 from graphcore.image import Image
 from operators.io.raster import read_raster, write_raster
 from operators.io.transfer import decode
+from tests.operators.conftest import RGBA, const_image, truncated_copy
 
 
 def _codes(rng, shape, bits):
@@ -63,7 +64,7 @@ def test_straight_alpha_becomes_premultiplied(tmp_path):
     bgra[0, 1] = (10, 20, 30, 255)    # opaque
     cv2.imwrite(str(tmp_path / "a.png"), bgra)
     img = read_raster(str(tmp_path / "a.png"))
-    assert img.channels == ("R", "G", "B", "A")
+    assert img.channels == RGBA
     alpha = bgra[:, :, 3] / 255.0
     expected_r = decode("srgb", bgra[:, :, 2] / 255.0) * alpha
     np.testing.assert_allclose(img.channel("R"), expected_r, rtol=0, atol=2e-7)
@@ -91,14 +92,14 @@ def test_grey_files_become_rgb(tmp_path):
     la[..., 0], la[..., 1] = 200, 128
     PILImage.fromarray(la, "LA").save(tmp_path / "la.png")
     img = read_raster(str(tmp_path / "la.png"))
-    assert img.channels == ("R", "G", "B", "A")
+    assert img.channels == RGBA
     assert img.pixels[0, 0, 3] == pytest.approx(128 / 255)
     assert img.pixels[0, 0, 0] == pytest.approx(float(decode("srgb", 200 / 255)) * 128 / 255,
                                                  rel=1e-6)
 
 
 def test_single_channel_written_grey(tmp_path):
-    img = Image(np.full((3, 3, 1), 0.2158605, np.float32), ("Y",))
+    img = const_image(0.2158605, (3, 3), ("Y",))
     write_raster(str(tmp_path / "y.png"), img)
     back = cv2.imread(str(tmp_path / "y.png"), cv2.IMREAD_UNCHANGED)
     assert back.ndim == 2 and back[0, 0] == 128
@@ -117,7 +118,7 @@ def test_write_rounds_and_clips(tmp_path):
     img = Image(np.array([[[2.0, -1.0, np.nan]]], np.float32), ("R", "G", "B"))
     write_raster(str(tmp_path / "c.png"), img, transfer="linear")
     assert cv2.imread(str(tmp_path / "c.png"), cv2.IMREAD_UNCHANGED)[0, 0].tolist() == [0, 0, 255]
-    img = Image(np.full((1, 1, 3), 100.4 / 255, np.float32), ("R", "G", "B"))
+    img = const_image(100.4 / 255, (1, 1), ("R", "G", "B"))
     write_raster(str(tmp_path / "r.png"), img, transfer="linear")
     assert cv2.imread(str(tmp_path / "r.png"), cv2.IMREAD_UNCHANGED)[0, 0].tolist() == [100] * 3
 
@@ -133,7 +134,7 @@ def test_jpeg(tmp_path):
     with pytest.raises(OpError) as info:
         write_raster(str(tmp_path / "k.jpg"), img, bit_depth=16)
     assert info.value.field == "bit_depth"
-    rgba = Image(np.ones((2, 2, 4), np.float32), ("R", "G", "B", "A"))
+    rgba = const_image(1.0, (2, 2), RGBA)
     with pytest.raises(OpError, match="alpha"):
         write_raster(str(tmp_path / "a.jpg"), rgba)
 
@@ -141,14 +142,12 @@ def test_jpeg(tmp_path):
 def test_bad_files(tmp_path):
     rng = np.random.default_rng(8)
     cv2.imwrite(str(tmp_path / "ok.jpg"), _codes(rng, (64, 64, 3), 8))
-    data = (tmp_path / "ok.jpg").read_bytes()
-    (tmp_path / "cut.jpg").write_bytes(data[: len(data) // 2])
+    truncated_copy(tmp_path / "ok.jpg", tmp_path / "cut.jpg")
     with pytest.raises(OpError, match="truncated") as info:
         read_raster(str(tmp_path / "cut.jpg"))
     assert info.value.file == str(tmp_path / "cut.jpg")
     cv2.imwrite(str(tmp_path / "ok.png"), _codes(rng, (64, 64, 3), 8))
-    data = (tmp_path / "ok.png").read_bytes()
-    (tmp_path / "cut.png").write_bytes(data[: len(data) // 2])
+    truncated_copy(tmp_path / "ok.png", tmp_path / "cut.png")
     with pytest.raises(OpError) as info:
         read_raster(str(tmp_path / "cut.png"))
     assert info.value.file == str(tmp_path / "cut.png")
@@ -160,7 +159,7 @@ def test_bad_files(tmp_path):
 
 
 def test_channel_selection_errors(tmp_path):
-    img = Image(np.zeros((2, 2, 2), np.float32), ("fwd.x", "fwd.y"))
+    img = const_image(0.0, (2, 2), ("fwd.x", "fwd.y"))
     with pytest.raises(OpError, match="fwd.x, fwd.y") as info:
         write_raster(str(tmp_path / "v.png"), img)
     assert info.value.field == "channels"

@@ -5,32 +5,23 @@ from fractions import Fraction
 
 import cv2
 import numpy as np
-import OpenEXR
 import pydantic
 import pytest
 
 from graphcore.errors import OpError
-from graphcore.registry.operator import FrameRange, OpContext, Operator
+from graphcore.registry.operator import FrameRange, Operator
 from graphcore.sample import Sample
 from operators.io.read import READ, ReadParams
 from operators.io.transfer import decode
-
-
-def _exr(path, planes):
-    hdr = {"type": OpenEXR.scanlineimage, "compression": OpenEXR.ZIP_COMPRESSION}
-    OpenEXR.File(hdr, {k: np.array(v, dtype=np.float32) for k, v in planes.items()}).write(str(path))
+from tests.operators.conftest import op_context, truncated_copy, write_raw_exr
 
 
 def _plate(tmp_path, frames, name="p"):
     """Tiny EXR frames whose R value is the frame number (known answer)."""
     for f in frames:
-        _exr(tmp_path / f"{name}.{f:04d}.exr", {"R": np.full((4, 6), f), "G": np.zeros((4, 6)),
-                                                "B": np.zeros((4, 6))})
+        write_raw_exr(tmp_path / f"{name}.{f:04d}.exr",
+                      {"R": np.full((4, 6), f), "G": np.zeros((4, 6)), "B": np.zeros((4, 6))})
     return str(tmp_path / f"{name}.%04d.exr")
-
-
-def _ctx(sample, warnings=None):
-    return OpContext(sample=sample, warn=(warnings.append if warnings is not None else (lambda m: None)))
 
 
 def test_declaration():
@@ -76,11 +67,11 @@ def test_frames_gap_and_nothing_found(tmp_path):
 
 
 def test_still_file(tmp_path):
-    _exr(tmp_path / "bg.exr", {"R": np.full((2, 3), 0.5)})
+    write_raw_exr(tmp_path / "bg.exr", {"R": np.full((2, 3), 0.5)})
     params = ReadParams(path=str(tmp_path / "bg.exr"))
     assert READ.frames(params, {}) is None  # available at every frame
     for s in (Sample(1), Sample(1001), Sample(Fraction(2001, 2))):
-        img = READ.compute(params, {}, _ctx(s))
+        img = READ.compute(params, {}, op_context(s))
         assert img.channel("R")[0, 0] == 0.5
     assert img.meta["source.frame"] is None
     with pytest.raises(OpError) as info:
@@ -92,7 +83,7 @@ def test_compute_reads_the_frame(tmp_path):
     pattern = _plate(tmp_path, range(1001, 1004))
     params = ReadParams(path=pattern)
     for f in (1001, 1002, 1003):
-        img = READ.compute(params, {}, _ctx(Sample(f)))
+        img = READ.compute(params, {}, op_context(Sample(f)))
         assert np.all(img.channel("R") == f)
         assert img.meta["source.frame"] == f
         assert img.meta["source.path"] == os.path.abspath(pattern % f)
@@ -101,26 +92,27 @@ def test_compute_reads_the_frame(tmp_path):
 def test_axis_view(tmp_path):
     pattern = _plate(tmp_path, range(1, 4), name="cam")
     params = ReadParams(path=pattern, axis="view")
-    img = READ.compute(params, {}, _ctx(Sample(frame=1001, view=2)))
+    img = READ.compute(params, {}, op_context(Sample(frame=1001, view=2)))
     assert np.all(img.channel("R") == 2) and img.meta["source.axis"] == "view"
     # Time may be fractional when the files number views; the view must be an integer.
-    img = READ.compute(params, {}, _ctx(Sample(frame=Fraction(1, 3), view=3)))
+    img = READ.compute(params, {}, op_context(Sample(frame=Fraction(1, 3), view=3)))
     assert np.all(img.channel("R") == 3)
     with pytest.raises(OpError):
-        READ.compute(params, {}, _ctx(Sample(frame=1, view=Fraction(3, 2))))
+        READ.compute(params, {}, op_context(Sample(frame=1, view=Fraction(3, 2))))
 
 
 def test_fractional_sample_is_an_error(tmp_path):
     pattern = _plate(tmp_path, [1001, 1002])
     with pytest.raises(OpError) as info:
-        READ.compute(ReadParams(path=pattern), {}, _ctx(Sample(Fraction(3003, 3) + Fraction(1, 3))))
+        READ.compute(ReadParams(path=pattern), {},
+                     op_context(Sample(Fraction(3003, 3) + Fraction(1, 3))))
     assert "fractional" in info.value.message and info.value.file == pattern
 
 
 def test_missing_frame_names_file_and_existing_frames(tmp_path):
     pattern = _plate(tmp_path, [1001, 1002, 1003, 1007])
     with pytest.raises(OpError) as info:
-        READ.compute(ReadParams(path=pattern), {}, _ctx(Sample(1005)))
+        READ.compute(ReadParams(path=pattern), {}, op_context(Sample(1005)))
     err = info.value
     assert err.file == pattern % 1005 and err.field == "path"
     assert "1001-1003, 1007" in err.fix
@@ -137,7 +129,7 @@ def test_identity_and_sources(tmp_path):
     assert "fractional" in READ.identity(params, Sample(Fraction(1, 2)))
     assert READ.sources(params, Sample(1001)) == [path]
     # A rewritten file gets a new identity (cache keys change).
-    _exr(pattern % 1001, {"R": np.zeros((5, 5))})
+    write_raw_exr(pattern % 1001, {"R": np.zeros((5, 5))})
     os.utime(pattern % 1001, ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))
     assert READ.identity(params, Sample(1001)) != ident
     # Symbolic links resolve to the real file.
@@ -146,13 +138,14 @@ def test_identity_and_sources(tmp_path):
 
 
 def test_channels_selection(tmp_path):
-    _exr(tmp_path / "v.exr", {"R": np.ones((2, 2)), "fwd.x": np.full((2, 2), 3.0),
-                              "conf": np.full((2, 2), 0.5)})
+    write_raw_exr(tmp_path / "v.exr", {"R": np.ones((2, 2)), "fwd.x": np.full((2, 2), 3.0),
+                                       "conf": np.full((2, 2), 0.5)})
     params = ReadParams(path=str(tmp_path / "v.exr"), channels=["fwd.x", "R"])
-    img = READ.compute(params, {}, _ctx(Sample(1)))
+    img = READ.compute(params, {}, op_context(Sample(1)))
     assert img.channels == ("fwd.x", "R") and img.channel("fwd.x")[0, 0] == 3.0
     with pytest.raises(OpError) as info:
-        READ.compute(ReadParams(path=str(tmp_path / "v.exr"), channels=["A"]), {}, _ctx(Sample(1)))
+        READ.compute(ReadParams(path=str(tmp_path / "v.exr"), channels=["A"]), {},
+                     op_context(Sample(1)))
     assert info.value.field == "channels"
     assert "R, conf, fwd.x" in info.value.message  # lists what the file has
 
@@ -161,7 +154,7 @@ def _nan_plate(tmp_path):
     for f in (1, 2):
         r = np.ones((3, 3))
         r[0, 0], r[1, 1] = np.nan, np.inf
-        _exr(tmp_path / f"n.{f:04d}.exr", {"R": r, "G": np.full((3, 3), -np.inf)})
+        write_raw_exr(tmp_path / f"n.{f:04d}.exr", {"R": r, "G": np.full((3, 3), -np.inf)})
     return str(tmp_path / "n.%04d.exr")
 
 
@@ -170,7 +163,7 @@ def test_nonfinite_zero_warns_once_per_file(tmp_path):
     warnings = []
     params = ReadParams(path=pattern)
     for f in (1, 2):
-        img = READ.compute(params, {}, _ctx(Sample(f), warnings))
+        img = READ.compute(params, {}, op_context(Sample(f), warnings))
         assert np.isfinite(img.pixels).all()
         assert img.channel("R")[0, 0] == 0 and img.channel("R")[1, 1] == 0
         assert img.channel("R")[2, 2] == 1 and np.all(img.channel("G") == 0)
@@ -181,20 +174,20 @@ def test_nonfinite_zero_warns_once_per_file(tmp_path):
 def test_nonfinite_error_and_keep(tmp_path):
     pattern = _nan_plate(tmp_path)
     with pytest.raises(OpError) as info:
-        READ.compute(ReadParams(path=pattern, nonfinite="error"), {}, _ctx(Sample(1)))
+        READ.compute(ReadParams(path=pattern, nonfinite="error"), {}, op_context(Sample(1)))
     assert info.value.file == pattern % 1 and info.value.field == "nonfinite"
-    img = READ.compute(ReadParams(path=pattern, nonfinite="keep"), {}, _ctx(Sample(1)))
+    img = READ.compute(ReadParams(path=pattern, nonfinite="keep"), {}, op_context(Sample(1)))
     assert np.isnan(img.channel("R")[0, 0]) and np.isinf(img.channel("R")[1, 1])
 
 
 def test_explicit_transfer_on_exr_decodes_colour_only(tmp_path):
     # IEC 61966-2-1 decode applied to R, G, B; vectors and alpha untouched; premultiplication
     # respected (decode the straight colour, then multiply by alpha).
-    _exr(tmp_path / "s.exr", {"R": np.full((2, 2), 0.25), "G": np.full((2, 2), 0.5),
-                              "B": np.full((2, 2), 0.5), "A": np.full((2, 2), 0.5),
-                              "fwd.x": np.full((2, 2), 0.5)})
+    write_raw_exr(tmp_path / "s.exr", {"R": np.full((2, 2), 0.25), "G": np.full((2, 2), 0.5),
+                                       "B": np.full((2, 2), 0.5), "A": np.full((2, 2), 0.5),
+                                       "fwd.x": np.full((2, 2), 0.5)})
     img = READ.compute(ReadParams(path=str(tmp_path / "s.exr"), transfer="srgb"), {},
-                       _ctx(Sample(1)))
+                       op_context(Sample(1)))
     assert img.channel("R")[0, 0] == pytest.approx(float(decode("srgb", 0.5)) * 0.5, rel=1e-6)
     assert img.channel("G")[0, 0] == pytest.approx(float(decode("srgb", 1.0)) * 0.5, rel=1e-6)
     assert img.channel("A")[0, 0] == 0.5 and img.channel("fwd.x")[0, 0] == 0.5
@@ -205,18 +198,17 @@ def test_png_sequence(tmp_path):
         cv2.imwrite(str(tmp_path / f"g.{f}.png"), np.full((2, 2, 3), 128, np.uint8))
     params = ReadParams(path=str(tmp_path / "g.%d.png"))
     assert READ.frames(params, {}) == FrameRange(1, 2)
-    img = READ.compute(params, {}, _ctx(Sample(2)))
+    img = READ.compute(params, {}, op_context(Sample(2)))
     # IEC 61966-2-1: code 128 -> 0.2158605 linear.
     assert img.pixels[0, 0, 0] == pytest.approx(0.2158605, abs=1e-6)
     lin = READ.compute(ReadParams(path=str(tmp_path / "g.%d.png"), transfer="linear"), {},
-                       _ctx(Sample(2)))
+                       op_context(Sample(2)))
     assert lin.pixels[0, 0, 0] == pytest.approx(128 / 255)
 
 
 def test_corrupt_frame_is_an_op_error(tmp_path):
     pattern = _plate(tmp_path, [1, 2])
-    data = (tmp_path / "p.0002.exr").read_bytes()
-    (tmp_path / "p.0002.exr").write_bytes(data[: len(data) // 2])
+    truncated_copy(tmp_path / "p.0002.exr", tmp_path / "p.0002.exr")
     with pytest.raises(OpError) as info:
-        READ.compute(ReadParams(path=pattern), {}, _ctx(Sample(2)))
+        READ.compute(ReadParams(path=pattern), {}, op_context(Sample(2)))
     assert info.value.file == pattern % 2

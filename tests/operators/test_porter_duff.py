@@ -18,9 +18,8 @@ from hypothesis.extra import numpy as hnp
 
 from graphcore.errors import OpError
 from graphcore.image import Image
-from graphcore.registry.operator import OpContext
-from graphcore.sample import Sample
 from operators.composite.porter_duff import MATTE_COMPOSITE, MatteCompositeParams
+from tests.operators.conftest import RGBA, const_image, op_runner, premultiply_rgba
 
 TWO_INPUT = ("over", "in", "out", "atop", "xor", "plus")
 
@@ -45,10 +44,7 @@ PAPER_REGIONS = {
 }
 
 
-def run(inputs, ctx=None, **params):
-    full = {"a": None, "b": None, "matte": None, **inputs}
-    return MATTE_COMPOSITE.compute(MatteCompositeParams(**params), full,
-                                   ctx or OpContext(Sample(1)))
+run = op_runner(MATTE_COMPOSITE)
 
 
 def random_rgba(rng, shape=(16, 24), hdr=1.5):
@@ -57,7 +53,7 @@ def random_rgba(rng, shape=(16, 24), hdr=1.5):
     alpha.flat[::7] = 0.0
     alpha.flat[3::7] = 1.0
     straight = (rng.random((*shape, 3)) * hdr).astype(np.float32)
-    return Image(np.dstack([straight * alpha[..., None], alpha]), ("R", "G", "B", "A"))
+    return premultiply_rgba(np.dstack([straight, alpha]))
 
 
 @pytest.mark.parametrize("operation", TWO_INPUT)
@@ -67,7 +63,7 @@ def test_matches_paper_table(operation, seed):
     rng = np.random.default_rng(seed)
     a, b = random_rgba(rng), random_rgba(rng)
     out = run({"a": a, "b": b}, operation=operation, clamp_alpha=False)
-    assert out.channels == ("R", "G", "B", "A")
+    assert out.channels == RGBA
     aA = a.pixels[..., 3:4].astype(np.float64)
     aB = b.pixels[..., 3:4].astype(np.float64)
     fa_fn, fb_fn = PAPER_TABLE[operation]
@@ -109,16 +105,16 @@ def test_matches_subpixel_region_model(operation):
         a_px.append(row_a)
         b_px.append(row_b)
         expected.append(row_e)
-    a = Image(np.array(a_px, np.float32), ("R", "G", "B", "A"))
-    b = Image(np.array(b_px, np.float32), ("R", "G", "B", "A"))
+    a = Image(np.array(a_px, np.float32), RGBA)
+    b = Image(np.array(b_px, np.float32), RGBA)
     out = run({"a": a, "b": b}, operation=operation, clamp_alpha=False)
     np.testing.assert_allclose(out.pixels, np.array(expected), rtol=1e-6, atol=1e-6)
 
 
 def test_over_known_answer():
     # Hand computation with Porter & Duff 1984 'over': 0.4 + (1 - 0.5) * 0.2 = 0.5.
-    a = Image(np.array([[[0.4, 0.0, 0.25, 0.5]]], np.float32), ("R", "G", "B", "A"))
-    b = Image(np.array([[[0.2, 1.0, 0.0, 1.0]]], np.float32), ("R", "G", "B", "A"))
+    a = Image(np.array([[[0.4, 0.0, 0.25, 0.5]]], np.float32), RGBA)
+    b = Image(np.array([[[0.2, 1.0, 0.0, 1.0]]], np.float32), RGBA)
     out = run({"a": a, "b": b}, operation="over")
     np.testing.assert_allclose(out.pixels[0, 0], [0.5, 0.5, 0.25, 1.0], rtol=1e-7)
 
@@ -129,17 +125,11 @@ rgba_arrays = hnp.arrays(np.float32, (3, 4, 4),
                          elements=st.floats(0.0, 1.0, width=32, allow_nan=False))
 
 
-def as_premultiplied(px):
-    px = px.copy()
-    px[..., :3] *= px[..., 3:4]
-    return Image(px, ("R", "G", "B", "A"))
-
-
 @settings(max_examples=40, deadline=None)
 @given(rgba_arrays)
 def test_over_transparent_is_identity(px):
-    a = as_premultiplied(px)
-    clear = Image(np.zeros_like(px), ("R", "G", "B", "A"))
+    a = premultiply_rgba(px)
+    clear = const_image(0.0, px.shape[:2])
     assert np.array_equal(run({"a": a, "b": clear}).pixels, a.pixels)
     assert np.array_equal(run({"a": a}).pixels, a.pixels)  # unconnected b is clear
 
@@ -149,14 +139,14 @@ def test_over_transparent_is_identity(px):
 def test_opaque_over_anything_is_a(pa, pb):
     pa = pa.copy()
     pa[..., 3] = 1.0
-    a, b = as_premultiplied(pa), as_premultiplied(pb)
+    a, b = premultiply_rgba(pa), premultiply_rgba(pb)
     assert np.array_equal(run({"a": a, "b": b}).pixels, a.pixels)
 
 
 @settings(max_examples=40, deadline=None)
 @given(rgba_arrays, rgba_arrays)
 def test_plus_commutes_and_xor_is_symmetric(pa, pb):
-    a, b = as_premultiplied(pa), as_premultiplied(pb)
+    a, b = premultiply_rgba(pa), premultiply_rgba(pb)
     for op in ("plus", "xor"):
         assert np.array_equal(run({"a": a, "b": b}, operation=op).pixels,
                               run({"a": b, "b": a}, operation=op).pixels)
@@ -166,14 +156,14 @@ def test_plus_commutes_and_xor_is_symmetric(pa, pb):
 @given(rgba_arrays, rgba_arrays)
 def test_alpha_of_over(pa, pb):
     # Porter & Duff 1984: alpha of A over B = aA + aB - aA*aB.
-    a, b = as_premultiplied(pa), as_premultiplied(pb)
+    a, b = premultiply_rgba(pa), premultiply_rgba(pb)
     aA, aB = pa[..., 3].astype(np.float64), pb[..., 3].astype(np.float64)
     out = run({"a": a, "b": b})
     np.testing.assert_allclose(out.channel("A"), aA + aB - aA * aB, atol=2e-7)
 
 
 def test_plus_clamps_alpha_but_not_colour():
-    a = Image(np.full((2, 2, 4), 0.8, np.float32), ("R", "G", "B", "A"))
+    a = const_image(0.8, (2, 2))
     out = run({"a": a, "b": a}, operation="plus")
     np.testing.assert_allclose(out.channel("A"), 1.0)
     np.testing.assert_allclose(out.channel("R"), 1.6, rtol=1e-6)
@@ -187,7 +177,7 @@ def test_premultiply_unpremultiply_round_trip():
     rng = np.random.default_rng(5)
     straight = rng.random((8, 8, 3)).astype(np.float32) * 2
     alpha = rng.uniform(0.05, 1.0, (8, 8)).astype(np.float32)
-    img = Image(np.dstack([straight, alpha]), ("R", "G", "B", "A"))
+    img = Image(np.dstack([straight, alpha]), RGBA)
     pre = run({"a": img}, operation="premultiply")
     np.testing.assert_allclose(pre.pixels[..., :3], straight * alpha[..., None], rtol=1e-6)
     np.testing.assert_array_equal(pre.channel("A"), alpha)
@@ -199,22 +189,22 @@ def test_premultiply_unpremultiply_round_trip():
 
 def test_unpremultiply_leaves_colour_where_alpha_is_zero():
     px = np.array([[[0.3, 0.2, 0.1, 0.0], [0.25, 0.5, 0.0, 0.5]]], np.float32)
-    out = run({"a": Image(px, ("R", "G", "B", "A"))}, operation="unpremultiply")
+    out = run({"a": Image(px, RGBA)}, operation="unpremultiply")
     np.testing.assert_array_equal(out.pixels[0, 0], px[0, 0])  # documented choice: unchanged
     np.testing.assert_allclose(out.pixels[0, 1], [0.5, 1.0, 0.0, 0.5])
 
 
 def test_premultiply_by_separate_matte_sets_alpha():
-    plate = Image(np.full((3, 3, 3), 0.8, np.float32), ("R", "G", "B"))
+    plate = const_image(0.8, (3, 3), ("R", "G", "B"))
     m = np.linspace(0, 1, 9, dtype=np.float32).reshape(3, 3)
     out = run({"a": plate, "matte": Image(m, ("mask",))}, operation="premultiply")
-    assert out.channels == ("R", "G", "B", "A")
+    assert out.channels == RGBA
     np.testing.assert_allclose(out.channel("G"), 0.8 * m, rtol=1e-6)
     np.testing.assert_array_equal(out.channel("A"), m)
 
 
 def test_one_input_operations_refuse_b():
-    img = Image(np.zeros((2, 2, 4), np.float32), ("R", "G", "B", "A"))
+    img = const_image(0.0, (2, 2))
     for op in ("premultiply", "unpremultiply"):
         with pytest.raises(OpError) as err:
             run({"a": img, "b": img}, operation=op)
@@ -223,8 +213,8 @@ def test_one_input_operations_refuse_b():
 
 def test_premultiply_without_alpha_warns_and_passes_colour():
     warnings = []
-    img = Image(np.full((2, 2, 3), 0.3, np.float32), ("R", "G", "B"))
-    out = run({"a": img}, OpContext(Sample(1), warn=warnings.append), operation="premultiply")
+    img = const_image(0.3, (2, 2), ("R", "G", "B"))
+    out = run({"a": img}, warnings=warnings, operation="premultiply")
     assert len(warnings) == 1 and "no A channel" in warnings[0]
     np.testing.assert_array_equal(out.pixels[..., :3], img.pixels)
     np.testing.assert_array_equal(out.channel("A"), 1.0)
@@ -252,28 +242,26 @@ def test_separate_matte_over_background():
 
 
 def test_matte_uses_its_a_channel_and_replaces_a_alpha():
-    a = Image(np.dstack([np.full((2, 2, 3), 0.5), np.full((2, 2), 1.0)]).astype(np.float32),
-              ("R", "G", "B", "A"))
-    matte = Image(np.dstack([np.full((2, 2), 0.9), np.full((2, 2), 0.25)]).astype(np.float32),
-                  ("R", "A"))
+    a = const_image([0.5, 0.5, 0.5, 1.0], (2, 2))
+    matte = const_image([0.9, 0.25], (2, 2), ("R", "A"))
     out = run({"a": a, "matte": matte})
     np.testing.assert_allclose(out.channel("A"), 0.25)
     np.testing.assert_allclose(out.channel("R"), 0.125)
 
 
 def test_matte_with_several_channels_and_no_a_is_an_error():
-    a = Image(np.zeros((2, 2, 3), np.float32), ("R", "G", "B"))
+    a = const_image(0.0, (2, 2), ("R", "G", "B"))
     with pytest.raises(OpError) as err:
-        run({"a": a, "matte": Image(np.zeros((2, 2, 2), np.float32), ("R", "G"))})
+        run({"a": a, "matte": const_image(0.0, (2, 2), ("R", "G"))})
     assert err.value.field == "matte"
     assert "R, G" in str(err.value) and err.value.fix
 
 
 def test_matte_out_of_range_is_clipped_with_one_warning():
     warnings = []
-    a = Image(np.ones((2, 2, 3), np.float32), ("R", "G", "B"))
+    a = const_image(1.0, (2, 2), ("R", "G", "B"))
     m = np.array([[-0.5, 0.5], [1.5, 1.0]], np.float32)
-    out = run({"a": a, "matte": Image(m, ("A",))}, OpContext(Sample(1), warn=warnings.append))
+    out = run({"a": a, "matte": Image(m, ("A",))}, warnings=warnings)
     assert len(warnings) == 1 and "clipped" in warnings[0]
     np.testing.assert_array_equal(out.channel("A"), [[0.0, 0.5], [1.0, 1.0]])
 
@@ -281,10 +269,8 @@ def test_matte_out_of_range_is_clipped_with_one_warning():
 # -- channels and sizes ------------------------------------------------------------------------
 
 def test_channel_union_order_missing_colour_and_opaque_default():
-    a = Image(np.dstack([np.full((2, 2), 0.5), np.full((2, 2), 3.0)]).astype(np.float32),
-              ("G", "fwd.x"))            # no A: opaque
-    b = Image(np.dstack([np.full((2, 2), 0.25), np.full((2, 2), 0.7), np.full((2, 2), 7.0),
-                         np.full((2, 2), 0.5)]).astype(np.float32), ("R", "conf", "fwd.x", "A"))
+    a = const_image([0.5, 3.0], (2, 2), ("G", "fwd.x"))  # no A: opaque
+    b = const_image([0.25, 0.7, 7.0, 0.5], (2, 2), ("R", "conf", "fwd.x", "A"))
     out = run({"a": a, "b": b}, operation="atop")
     assert out.channels == ("R", "G", "A", "fwd.x", "conf")
     # atop: Fa = aB = 0.5, Fb = 1 - aA = 0. R missing on a counts 0; G missing on b counts 0.
@@ -297,8 +283,8 @@ def test_channel_union_order_missing_colour_and_opaque_default():
 
 @pytest.mark.parametrize("port", ["b", "matte"])
 def test_size_mismatch_names_sizes_and_suggests_resize(port):
-    a = Image(np.zeros((4, 6, 4), np.float32), ("R", "G", "B", "A"))
-    other = Image(np.zeros((5, 6, 4), np.float32), ("R", "G", "B", "A"))
+    a = const_image(0.0, (4, 6))
+    other = const_image(0.0, (5, 6))
     with pytest.raises(OpError) as err:
         run({"a": a, port: other})
     assert err.value.field == port
@@ -307,8 +293,8 @@ def test_size_mismatch_names_sizes_and_suggests_resize(port):
 
 
 def test_meta_comes_from_a():
-    a = Image(np.zeros((2, 2, 4), np.float32), ("R", "G", "B", "A"), {"source.path": "fg.exr"})
-    b = Image(np.zeros((2, 2, 4), np.float32), ("R", "G", "B", "A"), {"source.path": "bg.exr"})
+    a = const_image(0.0, (2, 2), meta={"source.path": "fg.exr"})
+    b = const_image(0.0, (2, 2), meta={"source.path": "bg.exr"})
     assert run({"a": a, "b": b}).meta["source.path"] == "fg.exr"
 
 

@@ -16,16 +16,16 @@ from skimage.transform import resize as sk_resize
 
 from graphcore.errors import OpError
 from graphcore.image import Image
-from graphcore.registry.operator import OpContext
-from graphcore.sample import Sample
 from operators.transform.resize import MAX_SIZE, RESIZE, ResizeParams, vector_axis
+from tests.conftest import noise_image
+from tests.operators.conftest import RGBA, const_image, op_runner
 
-RGBA = ("R", "G", "B", "A")
+_run = op_runner(RESIZE)
 
 
-def run(image, warn=None, **params):
-    ctx = OpContext(Sample(1), warn=warn or (lambda msg: None))
-    return RESIZE.compute(ResizeParams(**params), {"image": image}, ctx)
+def run(image, **kw):
+    """Resize ``image`` (the operator's only input); ``kw`` as for ``op_runner``."""
+    return _run({"image": image}, **kw)
 
 
 def index_image(w, h, channels=("R",)):
@@ -38,7 +38,7 @@ def index_image(w, h, channels=("R",)):
 
 @pytest.mark.parametrize("filt", ["nearest", "bilinear", "bicubic", "lanczos", "area"])
 def test_constant_stays_constant(filt):
-    img = Image(np.full((5, 7, 4), [0.2, 0.4, 2.5, 0.75], np.float32), RGBA)
+    img = const_image([0.2, 0.4, 2.5, 0.75], (5, 7))
     out = run(img, scale=2.0, filter=filt)
     assert out.size == (14, 10)
     np.testing.assert_allclose(out.pixels, np.broadcast_to(img.pixels[0, 0], out.pixels.shape),
@@ -53,7 +53,7 @@ def test_scale_rounds_half_up():
 def test_vectors_scaled_by_axis_factors_conf_not():
     planes = {"R": 0.5, "fwd.x": 3.0, "fwd.y": -2.0, "bwd.x": 1.0, "bwd.y": 4.0, "conf": 0.5,
               "left.fwd.x": 2.0, "motion.x": 5.0}
-    img = Image(np.dstack([np.full((4, 6), v, np.float32) for v in planes.values()]), tuple(planes))
+    img = const_image(list(planes.values()), (4, 6), tuple(planes))
     out = run(img, width=12, height=12)          # x factor 2, y factor 3
     expected = {"R": 0.5, "fwd.x": 6.0, "fwd.y": -6.0, "bwd.x": 2.0, "bwd.y": 12.0, "conf": 0.5,
                 "left.fwd.x": 4.0, "motion.x": 5.0}   # 'motion' is not a vector layer
@@ -83,9 +83,8 @@ def test_area_downscale_of_checker_is_the_mean():
 def test_area_with_many_channels_non_integer_factor():
     # OpenCV's area path takes at most 4 channels (opencv/opencv#11138); 9 channels must still
     # work and equal channel-by-channel resampling (the mean of covered pixels, partial weights).
-    rng = np.random.default_rng(4)
     names = ("R", "G", "B", "A", "fwd.x", "fwd.y", "bwd.x", "bwd.y", "conf")
-    px = rng.random((10, 10, 9)).astype(np.float32)
+    px = noise_image(10, 10, names, seed=4, premultiplied=False).pixels
     out = run(Image(px, names), width=4, height=4, filter="area", data_filter="area")
     for k, name in enumerate(names):
         single = run(Image(px[..., k], (name,)), width=4, height=4, filter="area", data_filter="area")
@@ -98,8 +97,7 @@ def test_area_with_many_channels_non_integer_factor():
 @pytest.mark.parametrize("filt, order", [("nearest", 0), ("bilinear", 1)])
 def test_matches_scikit_image(size, filt, order):
     # Reference library: skimage.transform.resize(order=0/1, mode='edge', anti_aliasing=False).
-    rng = np.random.default_rng(7)
-    px = rng.random((7, 9, 2)).astype(np.float32)
+    px = noise_image(7, 9, ("R", "conf"), seed=7).pixels
     out = run(Image(px, ("R", "conf")), width=size[0], height=size[1], filter=filt, data_filter=filt)
     ref = sk_resize(px.astype(np.float64), (size[1], size[0], 2), order=order, mode="edge",
                     anti_aliasing=False)
@@ -164,9 +162,7 @@ def test_fill_crops_after_scaling():
 
 
 def test_fit_pads_after_scaling_and_scales_vectors():
-    planes = np.dstack([np.full((100, 200), 0.5), np.full((100, 200), 1.0),
-                        np.full((100, 200), 4.0), np.full((100, 200), 2.0)]).astype(np.float32)
-    img = Image(planes, ("R", "A", "fwd.x", "fwd.y"))
+    img = const_image([0.5, 1.0, 4.0, 2.0], (100, 200), ("R", "A", "fwd.x", "fwd.y"))
     out = run(img, width=100, height=100, fit="fit")        # picture 100x50, rows 25..75
     assert out.size == (100, 100)
     np.testing.assert_allclose(out.pixels[25:75],
@@ -185,7 +181,7 @@ def test_same_size_passes_through():
 
 def test_area_when_enlarging_warns():
     warnings = []
-    run(index_image(4, 4), warn=warnings.append, scale=2.0, filter="area")
+    run(index_image(4, 4), warnings=warnings, scale=2.0, filter="area")
     assert len(warnings) == 1 and "shrinking" in warnings[0]
 
 
@@ -215,10 +211,10 @@ def test_huge_scale_is_an_op_error():
 
 def test_unconnected_image():
     with pytest.raises(OpError) as err:
-        RESIZE.compute(ResizeParams(scale=2.0), {"image": None}, OpContext(Sample(1)))
+        run(None, scale=2.0)
     assert err.value.field == "image"
 
 
 def test_meta_kept():
-    img = Image(np.zeros((4, 4, 1), np.float32), ("R",), {"source.path": "plate.1001.exr"})
+    img = const_image(0.0, (4, 4), ("R",), {"source.path": "plate.1001.exr"})
     assert run(img, scale=0.5).meta["source.path"] == "plate.1001.exr"
