@@ -122,7 +122,14 @@ class Evaluator:
         return out
 
     # -- keys ---------------------------------------------------------------------------------
+    def _canonical(self, nid: str, sample: Sample) -> Sample:
+        op = self.ops[nid]
+        if op.canonical_sample is None:
+            return sample
+        return op.canonical_sample(self.graph.nodes[nid].params, sample)
+
     def key(self, nid: str, sample: Sample) -> str:
+        sample = self._canonical(nid, sample)
         memo = self._keys.get((nid, sample))
         if memo is not None:
             return memo
@@ -190,6 +197,7 @@ class Evaluator:
     def evaluate(self, nid: str, sample: Sample) -> Image:
         """The result of node ``nid`` at ``sample`` (from the cache when possible)."""
         op = self.ops[nid]
+        sample = self._canonical(nid, sample)
         key = self.key(nid, sample) if op.cacheable else None
         if key is not None:
             hit = self.cache.get(key)

@@ -174,7 +174,9 @@ def cmd_run(args: argparse.Namespace) -> int:
               f"{compact_frames([r.frame for r in failed])}", file=sys.stderr)
         return report.exit_code
     done = len(report.results)
-    print(f"midframe: rendered {done} frame{'s' if done != 1 else ''}", file=sys.stderr)
+    frames = len(outcome.frames)
+    outputs = f" ({done} files from {done // max(1, frames)} outputs)" if done != frames else ""
+    print(f"midframe: rendered {frames} frame{'s' if frames != 1 else ''}{outputs}", file=sys.stderr)
     return EXIT_OK
 
 

@@ -78,7 +78,7 @@ def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:
     """One task per sink per frame; a frame outside a sink's input range fails on its own, with the
     operator's message (e.g. the missing file), rather than being silently dropped."""
     frames = list(frames)
-    return [Task(sink, f) for sink in ev.sinks() for f in frames]
+    return [Task(sink, f) for f in frames for sink in ev.sinks()]  # frame-major: chunks keep a frame together
 
 
 def protected_paths(ev: Evaluator) -> frozenset[str]:

@@ -13,6 +13,8 @@ An operator never touches the cache, the graph or the command line. The evaluato
   inputs' ranges (``read`` discovers it on disk). Default: the intersection of connected inputs.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
 - ``targets(params, frames)``: files a sink writes for those frames (overwrite guard, resume).
+- ``canonical_sample(params, sample)``: the sample whose result this one equals (``read`` of a
+  still: the same at every frame; a frame sequence: the same at every view), so the cache serves it.
 - ``check_links(params, connected)``: problems (``OpError`` objects, returned, not raised) that
   depend on which ports are connected, so ``midframe check`` finds them before any render.
 
@@ -168,6 +170,7 @@ class Operator:
     sources: Callable[[Any, Sample], Sequence[str]] | None = None
     targets: Callable[[Any, Sequence[int]], Sequence[str]] | None = None
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
+    canonical_sample: Callable[[Any, Sample], Sample] | None = None
     sink: bool = False
     cacheable: bool = True
     disk_cache: bool = True  # False for results cheaper to recompute than to store (``read``)

@@ -94,6 +94,13 @@ def _frames(params: ReadParams, input_frames: Mapping[str, FrameRange | None]) -
     return FrameRange(first, last)
 
 
+def _canonical_sample(params: ReadParams, sample: Sample) -> Sample:
+    """A still is the same file at every sample; a sequence depends only on its own axis."""
+    if not sequence.is_sequence(params.path):
+        return Sample(0, 0)
+    return Sample(sample.frame, 0) if params.axis == "frame" else Sample(0, sample.view)
+
+
 def _identity(params: ReadParams, sample: Sample) -> str:
     try:
         path = resolved(_file_for(params, sample))
@@ -201,6 +208,7 @@ READ = Operator(
              "premultiplied by A."),
     identity=_identity,
     frames=_frames,
-    disk_cache=False,  # re-reading the plate is cheaper than storing a copy of it
+    disk_cache=False,
+    canonical_sample=_canonical_sample,  # re-reading the plate is cheaper than storing a copy of it
     sources=_sources,
 )

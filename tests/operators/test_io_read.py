@@ -212,3 +212,20 @@ def test_corrupt_frame_is_an_op_error(tmp_path):
     with pytest.raises(OpError) as info:
         READ.compute(ReadParams(path=pattern), {}, op_context(Sample(2)))
     assert info.value.file == pattern % 2
+
+
+def test_a_still_is_read_once_for_every_frame(tmp_path):
+    """canonical_sample: a still's result is shared by every frame and view through the cache."""
+    from graphcore.evaluate import Evaluator
+    from graphcore.sample import Sample
+    from graphcore.validate import load_graph
+    from operators.io.exr import write_exr
+    from tests.conftest import noise_image
+
+    write_exr(str(tmp_path / "still.exr"), noise_image(8, 8, seed=1))
+    doc = {"schema": "midframe.graph", "version": 2,
+           "nodes": {"s": {"op": "read", "params": {"path": str(tmp_path / "still.exr")}}}}
+    ev = Evaluator(load_graph(doc).graph)
+    images = [ev.evaluate("s", Sample(f, v)) for f in (1, 2, 7) for v in (0, 3)]
+    assert ev.calls["s"] == 1
+    assert all(img is images[0] for img in images)
