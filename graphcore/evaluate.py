@@ -76,6 +76,7 @@ class Evaluator:
         self._requests: dict[tuple[str, Sample], list[Request]] = {}
         self._sources: dict[tuple[str, Sample], tuple[str, ...]] = {}
         self._frames: dict[str, FrameRange | None] = {}
+        self._views: dict[str, FrameRange | None] = {}
         self._params_json = {nid: node.params_json() for nid, node in graph.nodes.items()}
         self._graph_hash = graph.hash
         self._path_nodes = {nid: tuple({"id": u, "op": graph.nodes[u].op,
@@ -114,10 +115,11 @@ class Evaluator:
                     raise OpError(f"operator asked for input '{port_name}', which is not connected",
                                   node_id=nid, file=self.graph.file, field=f"inputs.{port_name}",
                                   fix=f"connect '{port_name}'")
-                if isinstance(want, Sample):
-                    out.append((port_name, node.inputs[port_name], (want,), True))
-                else:
-                    out.append((port_name, node.inputs[port_name], tuple(want), False))
+                src = node.inputs[port_name]
+                samples = (want,) if isinstance(want, Sample) else tuple(want)
+                if op.edge_samples:
+                    samples = tuple(s if s is not None and self.in_range(src, s) else None for s in samples)
+                out.append((port_name, src, samples, isinstance(want, Sample)))
         self._requests[(nid, sample)] = out
         return out
 
@@ -141,8 +143,8 @@ class Evaluator:
                 identity = op.identity(node.params, sample)
             except InputError as exc:
                 raise self._fill(exc, nid) from None
-        inputs = [(port, [self.key(src, s) for s in samples]) for port, src, samples, _ in
-                  self.requests(nid, sample)]
+        inputs = [(port, [self.key(src, s) if s is not None else "-" for s in samples])
+                  for port, src, samples, _ in self.requests(nid, sample)]
         k = node_key(op.name, op.version, self._params_json[nid], sample.token(), identity, inputs)
         self._keys[(nid, sample)] = k
         return k
@@ -159,7 +161,8 @@ class Evaluator:
             found.update(op.sources(node.params, sample))
         for _, src, samples, _ in self.requests(nid, sample):
             for s in samples:
-                found.update(self.sources(src, s))
+                if s is not None:
+                    found.update(self.sources(src, s))
         out = tuple(sorted(found))
         self._sources[(nid, sample)] = out
         return out
@@ -167,14 +170,22 @@ class Evaluator:
     # -- frame ranges ---------------------------------------------------------------------------
     def frames(self, nid: str) -> FrameRange | None:
         """Integer frames ``nid`` has data for; None when unbounded (no file-backed input)."""
-        if nid in self._frames:
-            return self._frames[nid]
+        return self._range(nid, "frames", self._frames)
+
+    def views(self, nid: str) -> FrameRange | None:
+        """Integer views (rig cameras) ``nid`` has data for; None when unbounded or not a rig."""
+        return self._range(nid, "views", self._views)
+
+    def _range(self, nid: str, axis: str, memo: dict[str, FrameRange | None]) -> FrameRange | None:
+        if nid in memo:
+            return memo[nid]
         node = self.graph.nodes[nid]
         op = self.ops[nid]
-        inputs = {port: self.frames(src) for port, src in node.inputs.items()}
+        inputs = {port: self._range(src, axis, memo) for port, src in node.inputs.items()}
+        hook = getattr(op, axis)
         try:
-            if op.frames is not None:
-                rng = op.frames(node.params, inputs)
+            if hook is not None:
+                rng = hook(node.params, inputs)
             else:
                 rng = None
                 for port in op.inputs:
@@ -185,13 +196,23 @@ class Evaluator:
                         else:
                             both = rng.intersect(r)
                             if both is None:
-                                raise OpError(f"inputs have no frames in common ({rng} and {r})",
-                                              field="inputs", fix="check the source frame ranges")
+                                word = "frames" if axis == "frames" else "views"
+                                raise OpError(f"inputs have no {word} in common ({rng} and {r})",
+                                              field="inputs", fix=f"check the source {word} ranges")
                             rng = both
         except InputError as exc:
             raise self._fill(exc, nid) from None
-        self._frames[nid] = rng
+        memo[nid] = rng
         return rng
+
+    def in_range(self, nid: str, sample: Sample) -> bool:
+        """False when ``sample`` lies outside ``nid``'s known frame or view range."""
+        fr, vr = self.frames(nid), self.views(nid)
+        if fr is not None and not (fr.first <= sample.frame <= fr.last):
+            return False
+        if vr is not None and not (vr.first <= sample.view <= vr.last):
+            return False
+        return True
 
     # -- evaluation -----------------------------------------------------------------------------
     def evaluate(self, nid: str, sample: Sample) -> Image:
@@ -206,7 +227,7 @@ class Evaluator:
         node = self.graph.nodes[nid]
         inputs: dict[str, Any] = {p.name: None for p in op.inputs}
         for port, src, samples, single in self.requests(nid, sample):
-            images = tuple(self.evaluate(src, s) for s in samples)
+            images = tuple(self.evaluate(src, s) if s is not None else None for s in samples)
             inputs[port] = images[0] if single else images
         ctx = OpContext(sample=sample, node_id=nid, graph_file=self.graph.file, graph_hash=self._graph_hash,
                         tool_version=__version__, params_json=self._params_json[nid],

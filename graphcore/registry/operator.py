@@ -11,6 +11,9 @@ An operator never touches the cache, the graph or the command line. The evaluato
   path, size, mtime).
 - ``frames(params, input_frames)``: the integer frame range this node has data for, given its
   inputs' ranges (``read`` discovers it on disk). Default: the intersection of connected inputs.
+- ``views(params, input_views)``: likewise for the integer views (camera numbers) of a rig.
+- ``edge_samples``: if True, an input sample that ``needs`` asks for beyond the input's known
+  frame or view range arrives as ``None`` (the last frame has no next one) instead of failing.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
 - ``targets(params, frames)``: files a sink writes for those frames (overwrite guard, resume).
 - ``canonical_sample(params, sample)``: the sample whose result this one equals (``read`` of a
@@ -167,9 +170,11 @@ class Operator:
     needs: Callable[[Any, Sample], Mapping[str, Sample | Sequence[Sample]] | None] = _default_needs
     identity: Callable[[Any, Sample], str] | None = None
     frames: Callable[[Any, Mapping[str, FrameRange | None]], FrameRange | None] | None = None
+    views: Callable[[Any, Mapping[str, FrameRange | None]], FrameRange | None] | None = None
     sources: Callable[[Any, Sample], Sequence[str]] | None = None
     targets: Callable[[Any, Sequence[int]], Sequence[str]] | None = None
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
+    edge_samples: bool = False
     canonical_sample: Callable[[Any, Sample], Sample] | None = None
     sink: bool = False
     cacheable: bool = True

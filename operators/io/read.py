@@ -94,6 +94,14 @@ def _frames(params: ReadParams, input_frames: Mapping[str, FrameRange | None]) -
     return FrameRange(first, last)
 
 
+def _views(params: ReadParams, input_views: Mapping[str, FrameRange | None]) -> FrameRange | None:
+    """The camera numbers found on disk when the files number views (``axis='view'``)."""
+    if params.axis != "view" or not sequence.is_sequence(params.path):
+        return None
+    first, last = sequence.contiguous_range(params.path, field="path")
+    return FrameRange(first, last)
+
+
 def _canonical_sample(params: ReadParams, sample: Sample) -> Sample:
     """A still is the same file at every sample; a sequence depends only on its own axis."""
     if not sequence.is_sequence(params.path):
@@ -209,6 +217,7 @@ READ = Operator(
     identity=_identity,
     frames=_frames,
     disk_cache=False,
-    canonical_sample=_canonical_sample,  # re-reading the plate is cheaper than storing a copy of it
+    canonical_sample=_canonical_sample,
+    views=_views,  # re-reading the plate is cheaper than storing a copy of it
     sources=_sources,
 )

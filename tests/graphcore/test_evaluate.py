@@ -114,3 +114,40 @@ def test_results_are_read_only(registry):
     img = _ev(registry, DIAMOND).evaluate("join", Sample(1))
     with pytest.raises(ValueError):
         img.pixels[0, 0, 0] = 1.0
+
+
+def test_edge_samples_arrive_as_none_beyond_the_range(registry):
+    """An operator that opts in (edge_samples) gets None for a neighbour past the last frame."""
+    import dataclasses
+
+    from tests import engine_ops
+
+    seen = {}
+
+    def compute(params, inputs, ctx):
+        now, later = inputs["image"]
+        seen[ctx.sample.frame] = later is None
+        return now
+
+    op = dataclasses.replace(engine_ops.NEXT_DIFF, name="test-next-edge", compute=compute, edge_samples=True)
+    registry.add(op)
+    nodes = {"src": {"op": "test-const", "params": {"first": 1, "last": 3}},
+             "d": {"op": "test-next-edge", "inputs": {"image": "src"}}}
+    ev = _ev(registry, nodes)
+    for f in (1, 2, 3):
+        ev.evaluate("d", Sample(f))
+    assert seen == {1: False, 2: False, 3: True}
+    assert ev.calls["src"] == 3  # frame 4 was never asked for
+
+
+def test_view_ranges_come_from_view_numbered_reads(tmp_path, registry):
+    from operators.io.exr import write_exr
+    from tests.conftest import noise_image
+
+    for cam in (1, 2, 3):
+        write_exr(str(tmp_path / f"cam.{cam:02d}.exr"), noise_image(4, 4, seed=cam))
+    nodes = {"rig": {"op": "read", "params": {"path": str(tmp_path / "cam.%02d.exr"), "axis": "view"}},
+             "s": {"op": "test-scale", "inputs": {"image": "rig"}}}
+    ev = _ev(registry, nodes)
+    assert ev.views("s") == FrameRange(1, 3) and ev.frames("s") is None
+    assert ev.in_range("s", Sample(7, 2)) and not ev.in_range("s", Sample(0, 4))
