@@ -77,6 +77,7 @@ class Evaluator:
         self._sources: dict[tuple[str, Sample], tuple[str, ...]] = {}
         self._frames: dict[str, FrameRange | None] = {}
         self._views: dict[str, FrameRange | None] = {}
+        self._uses: Counter[tuple[str, Sample]] | None = None
         self._params_json = {nid: node.params_json() for nid, node in graph.nodes.items()}
         self._graph_hash = graph.hash
         self._path_nodes = {nid: tuple({"id": u, "op": graph.nodes[u].op,
@@ -214,6 +215,46 @@ class Evaluator:
             return False
         return True
 
+    # -- retention ----------------------------------------------------------------------------
+    def plan(self, wanted: list[tuple[str, Sample]]) -> None:
+        """Count, for every (node, sample) the ``wanted`` results depend on, how many consumers will
+        ask for it. During evaluation a result leaves the memory cache once its last consumer has
+        run, so a sequence render holds only what later frames still need (neighbouring frames
+        for vectors, a still background) instead of every finished frame. Without a plan the
+        memory cache is a plain LRU."""
+        uses: Counter[tuple[str, Sample]] = Counter()
+        seen: set[tuple[str, Sample]] = set()
+        stack = [(nid, self._canonical(nid, s)) for nid, s in wanted]
+        while stack:
+            nid, s = stack.pop()
+            if (nid, s) in seen:
+                continue
+            seen.add((nid, s))
+            for _, src, samples, _ in self.requests(nid, s):
+                for x in samples:
+                    if x is None:
+                        continue
+                    x = self._canonical(src, x)
+                    uses[(src, x)] += 1
+                    stack.append((src, x))
+        self._uses = uses
+
+    def _consumed(self, nid: str, sample: Sample) -> None:
+        if self._uses is None:
+            return
+        k = (nid, self._canonical(nid, sample))
+        left = self._uses.get(k)
+        if left is None:
+            return
+        if left <= 1:
+            del self._uses[k]
+            self.cache.memory.discard(self.key(*k))
+        else:
+            self._uses[k] = left - 1
+
+    def _keep_in_memory(self, nid: str, sample: Sample) -> bool:
+        return self._uses is None or self._uses.get((nid, sample), 0) > 0
+
     # -- evaluation -----------------------------------------------------------------------------
     def evaluate(self, nid: str, sample: Sample) -> Image:
         """The result of node ``nid`` at ``sample`` (from the cache when possible)."""
@@ -246,8 +287,15 @@ class Evaluator:
                               nid) from exc
         if not isinstance(result, Image):
             raise NodeFailure(f"node '{nid}' ({op.name}) returned {type(result).__name__}, not an Image", nid)
+        for _, src, samples, _ in self.requests(nid, sample):
+            for x in samples:
+                if x is not None:
+                    self._consumed(src, x)
         if key is not None:
-            self.cache.put(key, result, persist=op.disk_cache)
+            if self._keep_in_memory(nid, sample):
+                self.cache.put(key, result, persist=op.disk_cache)
+            elif op.disk_cache and self.cache.disk is not None:
+                self.cache.disk.put(key, result)
         return result
 
     def _warn(self, nid: str, message: str) -> None:

@@ -77,7 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--jobs", type=_positive_int, default=1, metavar="N", help="worker processes (default 1)")
     p.add_argument("--cache", metavar="DIR", help="disk cache folder (shareable between runs and hosts)")
     p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB",
-                   help="in-memory cache size per process (default 2048 MB)")
+                   help="in-memory cache size, shared out between --jobs workers (default 2048 MB)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress output")
 
     p = sub.add_parser("check", help="validate a graph without rendering")

@@ -9,7 +9,6 @@ pin OpenCV to their share of the cores so N workers do not fight over them.
 
 from __future__ import annotations
 
-import math
 import multiprocessing as mp
 import os
 from collections import Counter
@@ -30,6 +29,15 @@ log = logging.getLogger("midframe.render")
 
 
 def _init_worker(payload: dict[str, Any]) -> None:
+    try:
+        _start_worker(payload)
+    except Exception as exc:  # reported per task by _run_chunk, not as a dead pool
+        import traceback
+
+        _worker["error"] = f"worker start-up failed: {type(exc).__name__}: {exc}\n{traceback.format_exc()}"
+
+
+def _start_worker(payload: dict[str, Any]) -> None:
     threads = payload.get("threads", 1)
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ[var] = str(threads)
@@ -51,8 +59,11 @@ def _init_worker(payload: dict[str, Any]) -> None:
 
 
 def _run_chunk(tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
+    if "error" in _worker:
+        return [FrameResult(t.node_id, t.frame, "failure", _worker["error"]) for t in tasks], {}
     ev: Evaluator = _worker["ev"]
     ev.calls.clear()
+    ev.plan([(t.node_id, t.sample) for t in tasks])
     results = [render_task(ev, t) for t in tasks]
     return results, dict(ev.calls)
 
@@ -72,10 +83,14 @@ class PoolExecutor:
         disk = ev.cache.disk
         payload = {"source": dict(ev.graph.source), "file": ev.graph.file,
                    "cache_dir": os.fspath(disk.root) if disk is not None else None,
-                   "memory_bytes": self.memory_bytes, "protected": sorted(ev.protected_paths),
+                   "memory_bytes": max(1 << 20, self.memory_bytes // self.jobs),  # --memory is the total
+                   "protected": sorted(ev.protected_paths),
                    "plugins": self.plugins, "threads": max(1, (os.cpu_count() or 1) // self.jobs)}
-        size = max(1, math.ceil(len(tasks) / (self.jobs * 4)))
-        chunks = [tasks[i:i + size] for i in range(0, len(tasks), size)]
+        # near-equal contiguous chunks, a few per worker: neighbouring frames stay together and no
+        # worker is left with a long tail
+        n_chunks = min(len(tasks), self.jobs * 4)
+        bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
+        chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
         order = {id(t): i for i, t in enumerate(tasks)}
         ctx = mp.get_context("forkserver")
         collected: list[FrameResult] = []

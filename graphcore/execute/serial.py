@@ -15,6 +15,7 @@ class SerialExecutor:
 
     def run(self, ev: Evaluator, tasks: list[Task], on_result: ProgressFn | None = None) -> RunReport:
         report = RunReport()
+        ev.plan([(t.node_id, t.sample) for t in tasks])
         for task in tasks:
             result = render_task(ev, task)
             report.results.append(result)

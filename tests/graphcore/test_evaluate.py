@@ -151,3 +151,26 @@ def test_view_ranges_come_from_view_numbered_reads(tmp_path, registry):
     ev = _ev(registry, nodes)
     assert ev.views("s") == FrameRange(1, 3) and ev.frames("s") is None
     assert ev.in_range("s", Sample(7, 2)) and not ev.in_range("s", Sample(0, 4))
+
+
+def test_planned_render_drops_results_after_their_last_consumer(registry):
+    """With a plan, memory holds what later frames still need, not every finished frame
+    (cf. dask's policy of dropping intermediates once their last consumer has run)."""
+    from graphcore.execute import SerialExecutor
+    from graphcore.execute.plan import Task
+
+    nodes = {"src": {"op": "test-const", "params": {"value": 0.0, "first": 1, "last": 30}},
+             "d": {"op": "test-next-diff", "inputs": {"image": "src"}},
+             "s": {"op": "test-scale", "inputs": {"image": "d"}},
+             "out": {"op": "test-collect", "inputs": {"image": "s"}}}
+    ev = _ev(registry, nodes)
+    sizes = []
+    tasks = [Task("out", f) for f in range(1, 21)]
+    ev.plan([(t.node_id, t.sample) for t in tasks])
+    for t in tasks:
+        ev.evaluate(t.node_id, t.sample)
+        sizes.append(len(ev.cache.memory))
+    assert max(sizes) <= 2            # src at f+1 waits for the next frame; nothing else stays
+    assert ev.calls["src"] == 21      # and yet no frame of src was read twice
+    report = SerialExecutor().run(_ev(registry, nodes), tasks)
+    assert report.exit_code == 0 and report.calls["src"] == 21
