@@ -117,6 +117,65 @@ class DiskCache:
         if len(data) != record.get("nbytes") or hashlib.sha256(data).hexdigest() != record.get("sha256"):
             return self._corrupt(key, "content does not match its checksum")
         try:
+            pixels = _npy_view(data)
+            image = Image(pixels, tuple(record["channels"]), record.get("meta", {}))
+        except (ValueError, KeyError, TypeError) as exc:
+            return self._corrupt(key, f"undecodable entry ({exc})")
+        self.stats.hits += 1
+        return img
+
+    def put(self, key: str, image: Image) -> None:
+        if key in self._items:
+            self._items.move_to_end(key)
+            return
+        if image.nbytes > self.max_bytes:
+            return
+        self._items[key] = image
+        self._bytes += image.nbytes
+        self.stats.stores += 1
+        while self._bytes > self.max_bytes and self._items:
+            _, old = self._items.popitem(last=False)
+            self._bytes -= old.nbytes
+            self.stats.evictions += 1
+
+    def discard(self, key: str) -> None:
+        img = self._items.pop(key, None)
+        if img is not None:
+            self._bytes -= img.nbytes
+
+    def clear(self) -> None:
+        self._items.clear()
+        self._bytes = 0
+
+
+class DiskCache:
+    """Content-addressed folder of .npy + .json entries, safe to share between processes and hosts."""
+
+    def __init__(self, root: str | os.PathLike[str], max_bytes: int | None = None) -> None:
+        self.root = Path(root)
+        self.max_bytes = max_bytes
+        self.stats = CacheStats()
+        self.root.mkdir(parents=True, exist_ok=True)
+
+    def _paths(self, key: str) -> tuple[Path, Path]:
+        if not key.isalnum():
+            raise ValueError(f"cache key {key!r} is not alphanumeric")
+        folder = self.root / key[:2]
+        return folder / f"{key}.npy", folder / f"{key}.json"
+
+    def get(self, key: str) -> Image | None:
+        npy, meta_path = self._paths(key)
+        try:
+            record = json.loads(meta_path.read_text())
+            data = npy.read_bytes()
+        except (FileNotFoundError, NotADirectoryError):
+            self.stats.misses += 1
+            return None
+        except (OSError, ValueError) as exc:
+            return self._corrupt(key, f"unreadable entry ({exc})")
+        if len(data) != record.get("nbytes") or hashlib.sha256(data).hexdigest() != record.get("sha256"):
+            return self._corrupt(key, "content does not match its checksum")
+        try:
             pixels = np.load(io.BytesIO(data), allow_pickle=False)
             image = Image(pixels, tuple(record["channels"]), record.get("meta", {}))
         except (ValueError, KeyError, TypeError) as exc:
@@ -149,13 +208,21 @@ class DiskCache:
         except (TypeError, ValueError):
             log.debug("cache: metadata of %s is not JSON; not stored on disk", key[:12])
             return False
-        buf = io.BytesIO()
-        np.save(buf, np.ascontiguousarray(image.pixels), allow_pickle=False)
-        data = buf.getvalue()
-        record = {"channels": list(image.channels), "meta": json.loads(meta_text), "nbytes": len(data),
-                  "sha256": hashlib.sha256(data).hexdigest(), "format": "npy"}
         npy.parent.mkdir(parents=True, exist_ok=True)
-        _atomic_write(npy, data)
+        fd, tmp = tempfile.mkstemp(prefix=".tmp-", dir=npy.parent)
+        try:
+            with os.fdopen(fd, "wb") as fh:
+                writer = _HashingWriter(fh)
+                np.lib.format.write_array(writer, np.ascontiguousarray(image.pixels), allow_pickle=False)
+            os.replace(tmp, npy)
+        except BaseException:
+            try:
+                os.unlink(tmp)
+            except OSError:
+                pass
+            raise
+        record = {"channels": list(image.channels), "meta": json.loads(meta_text), "nbytes": writer.count,
+                  "sha256": writer.hash.hexdigest(), "format": "npy"}
         _atomic_write(meta_path, json.dumps(record, sort_keys=True).encode())
         self.stats.stores += 1
         return True
@@ -203,6 +270,38 @@ class DiskCache:
             freed += size
             removed += 1
         return removed, freed
+
+
+class _HashingWriter:
+    """A write-only file wrapper that hashes and counts what passes through it."""
+
+    def __init__(self, fh) -> None:
+        self.fh = fh
+        self.hash = hashlib.sha256()
+        self.count = 0
+
+    def write(self, data) -> int:
+        view = memoryview(data).cast("B")
+        self.hash.update(view)
+        self.count += view.nbytes
+        return self.fh.write(view)
+
+
+def _npy_view(data: bytes) -> np.ndarray:
+    """The array in .npy bytes, without a copy; object arrays are refused (never unpickled)."""
+    buf = io.BytesIO(data)
+    version = np.lib.format.read_magic(buf)
+    if version == (1, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_1_0(buf)
+    elif version == (2, 0):
+        shape, fortran, dtype = np.lib.format.read_array_header_2_0(buf)
+    else:
+        raise ValueError(f".npy version {version} not supported")
+    if dtype.hasobject:
+        raise ValueError("object arrays are refused")
+    count = int(np.prod(shape)) if shape else 1
+    arr = np.frombuffer(data, dtype=dtype, count=count, offset=buf.tell())
+    return arr.reshape(shape, order="F" if fortran else "C")
 
 
 def _atomic_write(path: Path, data: bytes) -> None:
