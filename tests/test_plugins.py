@@ -161,3 +161,33 @@ def test_vignette_without_colour_is_an_op_error(vignette_module):
     with pytest.raises(OpError) as info:
         vm.compute(vm.VignetteParams(), {"image": img}, _ctx())
     assert info.value.field == "inputs.image" and "R, G and B" in info.value.fix
+
+
+def test_example_plugin_used_in_a_graph_end_to_end(tmp_path):
+    """The installed third-party operator renders through `midframe run` like a built-in one."""
+    import contextlib
+    import io
+    import json
+
+    from graphcore.cli.main import main
+    from operators.io.exr import read_exr, write_exr
+
+    try:
+        distribution("midframe-example-plugin")
+    except PackageNotFoundError:
+        pytest.fail("examples/midframe-example-plugin is not installed: pip install -e examples/midframe-example-plugin")
+    plate = Image(np.ones((9, 9, 4), np.float32), ("R", "G", "B", "A"))
+    write_exr(str(tmp_path / "p.0001.exr"), plate, default_pixel_type="float")
+    graph = {"schema": "midframe.graph", "version": 2, "nodes": {
+        "p": {"op": "read", "params": {"path": str(tmp_path / "p.%04d.exr")}},
+        "v": {"op": "example-vignette", "params": {"strength": 0.5}, "inputs": {"image": "p"}},
+        "o": {"op": "write", "params": {"path": str(tmp_path / "o.%04d.exr"), "pixel_type": "float"},
+              "inputs": {"image": "v"}}}}
+    (tmp_path / "g.json").write_text(json.dumps(graph))
+    err = io.StringIO()
+    with contextlib.redirect_stderr(err):
+        assert main(["run", str(tmp_path / "g.json"), "-q"]) == 0, err.getvalue()
+    out = read_exr(str(tmp_path / "o.0001.exr"))
+    r = out.channel("R")
+    assert r[4, 4] == pytest.approx(1.0) and r[0, 0] < r[4, 4]  # darker towards the corners
+    assert np.all(out.channel("A") == 1.0)
