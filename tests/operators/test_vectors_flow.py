@@ -44,8 +44,6 @@ def _graph(path, **params):
 
 @pytest.mark.parametrize("engine", ["dis", "midframe"])
 def test_known_translation_both_ways_and_sequence_ends(tmp_path, engine):
-    if engine == "midframe":
-        pytest.importorskip("operators.vectors.estimate")
     ev = _graph(_moving_sequence(tmp_path), engine=engine, quality="standard")
     mid = ev.evaluate("vec", Sample(2))
     assert mid.channels == ("fwd.x", "fwd.y", "bwd.x", "bwd.y")

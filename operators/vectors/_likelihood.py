@@ -1,0 +1,57 @@
+"""The likelihood term: how well a candidate vector field matches ``second`` to ``first``.
+
+The negative log-likelihood at a pixel is a truncated absolute difference of the matching
+features (brightness and its gradients), averaged over a small square patch around the pixel,
+a robust block-matching likelihood in the spirit of Konrad & Dubois (1992). Vectors that point
+outside ``second`` get the truncation value: no evidence either way, so the prior decides.
+"""
+
+from __future__ import annotations
+
+import cv2
+import numpy as np
+
+from ._grid import outside, warp
+
+_ONES3 = np.ones((1, 3), np.float32)
+
+
+def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarray,
+                   cu: np.ndarray, cv: np.ndarray, tau: float, tau_out: float) -> np.ndarray:
+    """Truncated feature difference ``min(sum_c |F2_c(x + c) - F1_c(x)|, tau)`` per pixel.
+
+    Parameters
+    ----------
+    f1, f2 : ndarray, shape (H, W, 3), float32
+        Matching features of the two images at one level.
+    xs, ys : ndarray, shape (H, W), float32
+        Pixel grid of that level.
+    cu, cv : ndarray, shape (H, W), float32
+        Candidate vectors.
+    tau : float
+        Truncation: the largest cost of a mismatch.
+    tau_out : float
+        Cost of a vector that leaves the image (content not in view has no evidence).
+    """
+    h, w = cu.shape
+    mx = xs + cu
+    my = ys + cv
+    diff = cv2.transform(cv2.absdiff(warp(f2, mx, my), f1), _ONES3)
+    c = np.minimum(diff, np.float32(tau))
+    oob = outside(mx, my, h, w)
+    c += oob * (np.float32(tau_out) - c)
+    return c
+
+
+def patch_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarray,
+               cu: np.ndarray, cv: np.ndarray, tau: float, tau_out: float,
+               patch: int) -> np.ndarray:
+    """``pointwise_cost`` averaged over a ``patch`` x ``patch`` box around each pixel.
+
+    Exact for a candidate field that is constant over the patch; for a smoothly varying one
+    (the propagation candidates) it is the patch cost of the local vectors.
+    """
+    c = pointwise_cost(f1, f2, xs, ys, cu, cv, tau, tau_out)
+    if patch > 1:
+        c = cv2.boxFilter(c, -1, (patch, patch), normalize=True, borderType=cv2.BORDER_REFLECT)
+    return c
