@@ -24,7 +24,9 @@ import numpy as np
 from . import _pyramid
 from ._grid import pixel_grid, resize_flow
 from ._icm import coarse_labels, icm
+from ._likelihood import patch_cost
 from ._refine import refine
+from ._upsample import select_upsample
 
 # Upper bound on the coarsest level's cost volume, in float32 entries (~200 MB).
 _MAX_VOLUME = 50_000_000
@@ -71,6 +73,11 @@ class Preset:
         Edge-aware prior weights ``max(exp(-|dI| / edge_sigma), edge_floor)``.
     median : int
         Median filter side applied after each refinement warp (0: none).
+    upsample : {"bilinear", "final", "all"}
+        How vectors are enlarged from one level to the next: bilinearly everywhere; by the
+        likelihood (``_upsample.select_upsample``: each pixel takes the coarse vector around it
+        its 3 x 3 likelihood prefers, so edges do not start blurred) only into the final,
+        refinement-only level; or into every level.
     """
 
     work_pixels: int
@@ -94,20 +101,22 @@ class Preset:
     edge_sigma: float
     edge_floor: float
     median: int
+    upsample: str
 
 
 _STANDARD = Preset(work_pixels=150_000, lam=0.003, brightness=0.5, tau=0.3, tau_out=0.05,
                    patch=5, reach=5, coarse_sweeps=2, icm_sweeps=2, jumps=(1, 3, 9, 27),
                    radius=1.0, warps=3, iters=20, final_warps=2, final_iters=10, final_pixels=400_000, eps_d=0.01,
-                   eps_s=0.05, edge_sigma=0.05, edge_floor=0.05, median=5)
+                   eps_s=0.05, edge_sigma=0.05, edge_floor=0.05, median=5,
+                   upsample="final")
 
 #: Quality presets: ``draft`` solves at most ~40 k pixels and refines once at full size,
 #: ``standard`` solves at most ~150 k pixels, ``high`` solves every level in full.
 PRESETS: dict[str, Preset] = {
     "draft": replace(_STANDARD, work_pixels=40_000, icm_sweeps=1, jumps=(1, 4, 16), warps=2,
-                     iters=15, final_warps=0, final_iters=0),
+                     iters=15, final_warps=0, final_iters=0, upsample="bilinear"),
     "standard": _STANDARD,
-    "high": replace(_STANDARD, work_pixels=0, icm_sweeps=2, warps=3, iters=25),
+    "high": replace(_STANDARD, work_pixels=0, icm_sweeps=2, warps=3, iters=25, upsample="all"),
 }
 
 
@@ -130,7 +139,10 @@ def _resolve(quality: str, prior_strength: float | None, overrides: dict) -> Pre
         if not prior_strength >= 0:
             raise ValueError(f"prior_strength must be >= 0; got {prior_strength!r}")
         overrides = dict(overrides, lam=float(prior_strength))
-    return replace(p, **overrides) if overrides else p
+    p = replace(p, **overrides) if overrides else p
+    if p.upsample not in ("bilinear", "final", "all"):
+        raise ValueError(f"upsample must be 'bilinear', 'final' or 'all'; got {p.upsample!r}")
+    return p
 
 
 def estimate_flow(first: np.ndarray, second: np.ndarray, *, quality: str = "standard",
@@ -182,11 +194,13 @@ def estimate_flow(first: np.ndarray, second: np.ndarray, *, quality: str = "stan
     truncated, patch-averaged brightness-and-gradient likelihood, a Charbonnier MRF prior with
     edge-aware weights. The coarsest level is labelled exhaustively within ``search_range`` and
     cleaned by ICM over the whole label set; each finer level starts from the enlarged coarser
-    vectors, runs checkerboard ICM over candidate vectors (the neighbours' at several distances,
-    random local offsets) and then refines the same energy continuously: warping, linearisation,
-    iteratively reweighted least squares swept by red-black SOR, and a 5 x 5 median after each
-    warp. Occluded pixels have no true match; the prior fills them from the neighbours they are
-    not separated from by an image edge, which is not always the background.
+    vectors (enlarged by the likelihood's choice among the coarse vectors around each pixel
+    where the preset says so, bilinearly otherwise), runs checkerboard ICM over candidate
+    vectors (the neighbours' at several distances, random local offsets) and then refines the
+    same energy continuously: warping, linearisation, iteratively reweighted least squares swept
+    by red-black SOR, and a 5 x 5 median after each warp. Occluded pixels have no true match;
+    the prior fills them from the neighbours they are not separated from by an image edge, which
+    is not always the background.
 
     References
     ----------
@@ -255,7 +269,11 @@ def estimate_flow(first: np.ndarray, second: np.ndarray, *, quality: str = "stan
             if _trace:
                 _trace("coarse", k, u, v)
         else:
-            u, v = resize_flow(u, v, lh, lw)
+            if p.upsample == "all" or (p.upsample == "final" and k < work):
+                u, v = select_upsample(u, v, lh, lw, lambda cu, cv: patch_cost(
+                    l1.feat, l2.feat, xs, ys, cu, cv, p.tau, p.tau_out, 3))
+            else:
+                u, v = resize_flow(u, v, lh, lw)
             if k >= work and p.icm_sweeps:
                 u, v = icm(l1.feat, l2.feat, xs, ys, l1.wx, l1.wy, u, v, rng=rng,
                            sweeps=p.icm_sweeps, tau=p.tau, tau_out=p.tau_out, patch=p.patch,
