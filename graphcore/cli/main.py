@@ -99,6 +99,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--format", choices=("dot", "svg", "png"), default="dot")
     p.add_argument("--out", metavar="FILE", help="output file (default: standard output, DOT only)")
 
+    from graphcore.cli.vectors import add_parser as add_vectors
+
+    add_vectors(sub)
+
     p = sub.add_parser("demo", help="build the demo scenario and render it")
     p.add_argument("outdir", help="folder to create the demo in")
     p.add_argument("--jobs", type=_positive_int, default=1, metavar="N")
@@ -262,7 +266,13 @@ def cmd_demo(args: argparse.Namespace) -> int:
     return run_demo(args.outdir, jobs=args.jobs)
 
 
-COMMANDS = {"run": cmd_run, "check": cmd_check, "ops": cmd_ops, "schema": cmd_schema, "graph": cmd_graph,
+def cmd_vectors(args: argparse.Namespace) -> int:
+    from graphcore.cli.vectors import cmd_vectors as run_vectors
+
+    return run_vectors(args)
+
+
+COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "ops": cmd_ops, "schema": cmd_schema, "graph": cmd_graph,
             "demo": cmd_demo}
 
 
