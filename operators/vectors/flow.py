@@ -93,11 +93,9 @@ def _match_channels(image: Image, wanted: tuple[str, ...] | None) -> tuple[str, 
 def perceptual(image: Image, channels: tuple[str, ...]) -> np.ndarray:
     """(H, W, C) float32 perceptual encoding of linear ``channels``: sRGB curve, clipped 0..1.5,
     non-finite values as 0."""
-    from operators.io.transfer import encode
+    from operators.vectors._encode import perceptual as encode
 
-    px = image.select(channels).pixels
-    px = np.nan_to_num(np.asarray(px, np.float32), nan=0.0, posinf=0.0, neginf=0.0)
-    return np.clip(encode("srgb", np.clip(px, 0.0, 1.5)), 0.0, 1.5).astype(np.float32)
+    return encode(image.select(channels).pixels, ceiling=1.5)
 
 
 def _dis(first: np.ndarray, second: np.ndarray, quality: str, prefilter: float) -> np.ndarray:

@@ -44,6 +44,8 @@ from graphcore.image import ALPHA, Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.vectors import _filters as F
+from operators.vectors._encode import perceptual
+from operators.vectors.flow import neighbour
 from operators.vectors.channels import BWD, FWD, SMOOTHED, VECTORS
 from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_consistency, target_outside
 
@@ -589,12 +591,8 @@ class VectorSmoothParams(BaseModel):
                      "Vectors with confidence 0 always take the smoothed value."))
 
 
-def _neighbour(sample: Sample, axis: str, step: int) -> Sample:
-    return sample.shifted(frames=step) if axis == "frame" else sample.shifted(views=step)
-
-
 def _needs(params: VectorSmoothParams, sample: Sample) -> dict[str, Any]:
-    return {"vectors": (_neighbour(sample, params.axis, -1), sample, _neighbour(sample, params.axis, 1)),
+    return {"vectors": (neighbour(sample, params.axis, -1), sample, neighbour(sample, params.axis, 1)),
             "image": sample, "matte": sample}
 
 
@@ -641,8 +639,6 @@ def _finite(px: np.ndarray, what: str, bad: list[str]) -> np.ndarray:
 
 
 def _guide(image: Image) -> np.ndarray:
-    from operators.io.transfer import encode
-
     colour = image.color_names()
     if colour:
         px = image.select(colour).pixels
@@ -656,8 +652,7 @@ def _guide(image: Image) -> np.ndarray:
             "so it is unclear what to compare colours on",
             field="image",
             fix="connect the plate (R G B) the vectors were estimated on, or a single-channel image")
-    px = np.nan_to_num(np.asarray(px, np.float32), nan=0.0, posinf=0.0, neginf=0.0)
-    return encode("srgb", np.clip(px, 0.0, None)).astype(np.float32)
+    return perceptual(px, ceiling=None)
 
 
 def _matte(matte: Image) -> np.ndarray:
