@@ -9,6 +9,15 @@ over the connected inputs ``I_i`` in port order a, b, c, d. Mode ``time-dissolve
 ``a`` and, at a fractional frame f, returns ``(1 - t) * a(floor f) + t * a(floor f + 1)`` with
 ``t = f - floor f``: the cross-dissolve that vector retimes are measured against (Baker et al.,
 IJCV 2011, use it as a frame-interpolation baseline).
+
+Mode ``inbetween`` joins two in-betweens built by `warp` from either neighbour (``a`` from the
+previous sample, ``b`` from the next, each with its ``inbetween.vis`` channel) at ``f = n + t``
+along ``axis``: weights ``(1 - t) vis_a`` and ``t vis_b``, normalised, so each side counts by its
+distance in time and by how well it sees each pixel (Baker et al., IJCV 2011, weigh the two warped
+frames by time and occlusion the same way). Where both sides see a pixel poorly (both
+visibilities below ``threshold``) the result fades, over that range, to ``fallback``:
+``dissolve`` ((1 - t) a + t b) or ``nearest`` (a for t <= 1/2, else b), and the share of such
+pixels is reported as a warning.
 """
 
 from __future__ import annotations
@@ -38,12 +47,14 @@ class BlendParams(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    mode: Literal["mix", "time-dissolve"] = Field(
+    mode: Literal["mix", "time-dissolve", "inbetween"] = Field(
         "mix",
         description=("'mix': weighted sum of the connected inputs a, b, c, d at the same sample. "
                      "'time-dissolve': only 'a', read at the two integer frames around a "
                      "fractional frame and mixed by the fractional part (an integer frame passes "
-                     "through unchanged)."),
+                     "through unchanged). 'inbetween': 'a' and 'b' are the in-between warped from "
+                     "the previous and from the next sample (warp nodes, with inbetween.vis), "
+                     "weighted by time and visibility; an integer sample passes 'a' through."),
     )
     weights: tuple[float, ...] | None = Field(
         None,
@@ -65,8 +76,27 @@ class BlendParams(BaseModel):
                      "'a' and 'b' connected and cannot be combined with 'weights'. Mode 'mix' only."),
     )
 
+    axis: Literal["frame", "view"] = Field(
+        "frame",
+        description="Mode 'inbetween': the axis whose fractional part t weighs the two sides "
+                    "('frame' = time, 'view' = cameras of a rig).",
+    )
+    threshold: float = Field(
+        0.25, gt=0.0, le=1.0,
+        description=("Mode 'inbetween': where both sides' visibility is below this, the result "
+                     "fades to the fallback (fully at visibility 0 on both sides)."),
+    )
+    fallback: Literal["dissolve", "nearest"] = Field(
+        "dissolve",
+        description=("Mode 'inbetween': what poorly seen pixels show: 'dissolve' = (1-t)*a + t*b, "
+                     "'nearest' = a for t <= 1/2, else b."),
+    )
+
     @model_validator(mode="after")
     def _check(self) -> "BlendParams":
+        if self.mode == "inbetween" and (self.mix is not None or self.weights is not None):
+            raise ValueError("mode 'inbetween' takes its weights from the sample and the inputs' "
+                             "inbetween.vis; remove 'mix' and 'weights' or use mode 'mix'")
         if self.mix is not None and self.weights is not None:
             raise ValueError("give either 'mix' (two-input cross-dissolve) or 'weights', not both")
         if self.mode == "time-dissolve" and (self.mix is not None or self.weights is not None):
@@ -85,7 +115,11 @@ def blend_needs(params: BlendParams, sample: Sample) -> Mapping[str, Sample | Se
 
     ``mix``: None (every connected port at ``sample``). ``time-dissolve``: ``{"a": (s,)}`` at an
     integer frame, ``{"a": (floor f, floor f + 1)}`` at a fractional frame f, same view.
+    ``inbetween``: ``{"a": s}`` where ``s`` is integer along ``axis``, else ``{"a": s, "b": s}``.
     """
+    if params.mode == "inbetween":
+        pos = sample.frame if params.axis == "frame" else sample.view
+        return {"a": sample} if pos.denominator == 1 else {"a": sample, "b": sample}
     if params.mode != "time-dissolve":
         return None
     frame = sample.frame
@@ -136,10 +170,69 @@ def _time_dissolve(a: Image | tuple[Image, ...] | None, ctx: OpContext) -> Image
     return _weighted([("a", lo), ("a", hi)], [1.0 - t, t], normalize=False)
 
 
+def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpContext) -> Image:
+    """Mode ``inbetween`` (see the module docstring)."""
+    from operators.inbetween.warp import VIS, split_sample
+
+    if a is None:
+        raise OpError("input 'a' is not connected", field="a",
+                      fix="connect the warp node that builds from the previous sample to 'a'")
+    _, frac = split_sample(ctx.sample, params.axis)
+    if frac == 0:
+        return a  # a real sample: unchanged, bit for bit
+    if b is None:
+        raise OpError("input 'b' is not connected", field="b",
+                      fix="connect the warp node that builds from the next sample to 'b'")
+    for img, port in ((a, "a"), (b, "b")):
+        if VIS not in img.channels:
+            raise OpError(f"input '{port}' has no {VIS} channel (it has {', '.join(img.channels)}), so "
+                          "blend cannot tell where it is reliable", field=port,
+                          fix=f"connect a `warp` node's output to '{port}' (it adds {VIS})")
+    pb = _aligned(a, "a", b, "b")
+    vi = a.index(VIS)
+    keep = [i for i in range(len(a.channels)) if i != vi]
+    t = np.float32(frac)
+    va = np.clip(a.pixels[:, :, vi], 0.0, 1.0)
+    vb = np.clip(pb[:, :, vi], 0.0, 1.0)
+    pa, pb = a.pixels[:, :, keep], pb[:, :, keep]
+    wa, wb = (np.float32(1) - t) * va, t * vb
+    total = wa + wb
+    safe = np.where(total > 0, total, np.float32(1))
+    seen = (wa[:, :, None] * pa + wb[:, :, None] * pb) / safe[:, :, None]
+    if params.fallback == "dissolve":
+        fall = (np.float32(1) - t) * pa + t * pb
+    else:
+        fall = pa if frac <= Fraction(1, 2) else pb
+    best = np.maximum(va, vb)
+    s = np.clip(best / np.float32(params.threshold), 0.0, 1.0)
+    s[total <= 0] = 0.0
+    out = s[:, :, None] * seen + (np.float32(1) - s[:, :, None]) * fall
+    share = float(np.mean(best < params.threshold))
+    meta = dict(a.meta)
+    meta["inbetween.fallback_share"] = share
+    if share > 0:
+        ctx.warn(f"{share * 100:.2f} % of pixels at {ctx.sample} fell back to {params.fallback} "
+                 f"(both sides' visibility below {params.threshold:g})")
+    return Image(out.astype(np.float32), tuple(a.channels[i] for i in keep), meta)
+
 
 def link_problems(params: BlendParams, connected: frozenset[str]) -> list[OpError]:
     """Problems that depend on which ports are connected (also run by ``midframe check``)."""
     names = [p for p in PORTS if p in connected]
+    if params.mode == "inbetween":
+        missing = [p for p in ("a", "b") if p not in connected]
+        if missing:
+            return [OpError(f"mode 'inbetween' needs 'a' (warped from the previous sample) and 'b' "
+                            f"(warped from the next), but '{missing[0]}' is not connected",
+                            field=missing[0],
+                            fix=f"connect a `warp` node (side {'previous' if missing[0] == 'a' else 'next'}) "
+                                f"to '{missing[0]}'")]
+        extra = [n for n in names if n not in ("a", "b")]
+        if extra:
+            return [OpError(f"mode 'inbetween' reads only 'a' and 'b', but {', '.join(extra)} "
+                            f"{'is' if len(extra) == 1 else 'are'} connected", field=extra[0],
+                            fix="disconnect the extra inputs, or use mode 'mix'")]
+        return []
     if params.mode == "time-dissolve":
         extra = names[1:] if names[:1] == ["a"] else [n for n in names if n != "a"]
         if extra:
@@ -181,9 +274,13 @@ def blend(params: BlendParams, inputs: Mapping[str, Image | tuple[Image, ...] | 
         ``"a"`` (required), ``"b"``, ``"c"``, ``"d"`` (optional): Image, shape (H, W, C), all of
         one size and one channel set (order may differ; the result uses a's order). In mode
         ``time-dissolve``, ``"a"`` is a tuple of one Image (integer frame) or two Images
-        (frames floor f and floor f + 1).
+        (frames floor f and floor f + 1). In mode ``inbetween``, ``"a"`` and ``"b"`` are the
+        warped neighbours, each with an ``inbetween.vis`` plane (``"b"`` is None at an integer
+        sample, where only ``"a"`` is read).
     ctx : OpContext
-        ``ctx.sample.frame`` gives the dissolve fraction in mode ``time-dissolve``.
+        ``ctx.sample.frame`` gives the dissolve fraction in mode ``time-dissolve``; the frame (or
+        view, ``axis``) gives ``t`` in mode ``inbetween``, and ``ctx.warn`` receives the share of
+        pixels that fell back.
 
     Returns
     -------
@@ -198,7 +295,8 @@ def blend(params: BlendParams, inputs: Mapping[str, Image | tuple[Image, ...] | 
         ``field='weights'`` when the number of weights differs from the number of connected
         inputs; ``field='mix'`` when ``mix`` is given without exactly 'a' and 'b' connected;
         ``field=<port>`` for a size mismatch (fix: ``resize``) or a different channel set, or
-        for b, c or d connected in mode ``time-dissolve``.
+        for b, c or d connected in mode ``time-dissolve``; ``field='a'/'b'`` in mode ``inbetween``
+        for an input without ``inbetween.vis`` or a missing 'b'.
 
     Notes
     -----
@@ -206,6 +304,11 @@ def blend(params: BlendParams, inputs: Mapping[str, Image | tuple[Image, ...] | 
     Mixing vector channels averages motion, which is rarely meaningful; blend them only when
     that is what is wanted.
     """
+    if params.mode == "inbetween":
+        extra = [p for p in ("c", "d") if inputs.get(p) is not None]
+        if extra:
+            raise link_problems(params, frozenset({"a", "b", *extra}))[0]
+        return _inbetween(params, inputs.get("a"), inputs.get("b"), ctx)  # type: ignore[arg-type]
     problems = link_problems(params, frozenset(p for p in PORTS if inputs.get(p) is not None))
     if problems:
         raise problems[0]
@@ -235,6 +338,17 @@ At an integer frame it returns a's frame unchanged, bit for bit. This is the cro
 baseline against which vector retimes are judged (Baker et al., IJCV 2011, frame
 interpolation). It ghosts moving objects rather than moving them.
 
+mode 'inbetween': 'a' and 'b' are the in-between at a fractional sample f = n + t warped from
+the previous (a) and from the next (b) sample by `warp` nodes, each with its inbetween.vis
+channel (0..1). Weights (1-t)*vis_a and t*vis_b, normalised (Baker et al., IJCV 2011: the two
+warped frames weighted by time and occlusion). Where both visibilities are below 'threshold'
+the result fades to 'fallback' (fully so where both are 0): 'dissolve' = (1-t)*a + t*b, or
+'nearest' = a for t <= 1/2, else b (both of the warped images). The share of pixels below the
+threshold on both sides is reported as a warning per in-between (the render log lists them).
+The result drops inbetween.vis, so real and in-between frames carry the same channels. At an
+integer sample only 'a' is read and passed through unchanged, bit for bit. 't' is the
+fractional part of the frame (axis 'frame') or of the view (axis 'view').
+
 Every channel is mixed with the same weights (premultiplied colour mixes correctly as is).
 All inputs must have the same resolution (else add a `resize` node) and the same channel set.
 Metadata comes from 'a'.
@@ -247,8 +361,9 @@ BLEND = Operator(
     params=BlendParams,
     compute=blend,
     inputs=(
-        Port("a", "first image (the only one in mode 'time-dissolve')"),
-        Port("b", "second image", optional=True),
+        Port("a", "first image (the only one in mode 'time-dissolve'; warped from the previous "
+                  "sample in mode 'inbetween')"),
+        Port("b", "second image (warped from the next sample in mode 'inbetween')", optional=True),
         Port("c", "third image", optional=True),
         Port("d", "fourth image", optional=True),
     ),

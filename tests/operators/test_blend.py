@@ -170,3 +170,86 @@ def test_declaration():
     assert [p.name for p in BLEND.inputs] == ["a", "b", "c", "d"]
     assert [p.optional for p in BLEND.inputs] == [False, True, True, True]
     assert BLEND.needs is blend_needs and BLEND.doc and BLEND.outputs
+
+
+# -- inbetween (two warped neighbours, weighted by time and visibility) ------------------------------
+# Baker et al., IJCV 2011 (frame interpolation): the warped frames are weighted (1 - t) and t, each
+# only where it sees the pixel; known answers on invented constant images.
+
+VIS = "inbetween.vis"
+
+
+def ib(**kw):
+    return BlendParams(mode="inbetween", **kw)
+
+
+def warped(value, vis, shape=(3, 4)):
+    """An RGBA image of ``value`` with an inbetween.vis channel of ``vis`` (number or plane)."""
+    px = np.empty((*shape, 5), np.float32)
+    px[..., :4] = value
+    px[..., 4] = vis
+    return Image(px, ("R", "G", "B", "A", VIS))
+
+
+def test_inbetween_needs():
+    assert blend_needs(ib(), Sample(1001)) == {"a": Sample(1001)}
+    s = Sample(Fraction(5, 2))
+    assert blend_needs(ib(), s) == {"a": s, "b": s}
+    assert blend_needs(ib(axis="view"), Sample(Fraction(5, 2), 3)) == {"a": Sample(Fraction(5, 2), 3)}
+
+
+@pytest.mark.parametrize("t", [Fraction(1, 4), Fraction(1, 2), Fraction(9, 10)])
+def test_inbetween_weights_by_time_where_both_see(t):
+    out = run_op(BLEND, ib(), {"a": warped(1.0, 1.0), "b": warped(3.0, 1.0)}, sample=Sample(7 + t))
+    assert out.channels == ("R", "G", "B", "A")          # vis dropped
+    np.testing.assert_allclose(out.pixels, (1 - float(t)) * 1.0 + float(t) * 3.0, rtol=1e-6)
+
+
+def test_inbetween_weights_by_visibility():
+    # t = 1/4: weights 3/4 * 0.5 and 1/4 * 1 -> (0.375 * 1 + 0.25 * 3) / 0.625 = 1.8
+    vis_a = np.array([[0.5, 0.0, 1.0, 0.6]] * 3, np.float32)
+    vis_b = np.array([[1.0, 1.0, 0.0, 0.6]] * 3, np.float32)
+    out = run_op(BLEND, ib(), {"a": warped(1.0, vis_a), "b": warped(3.0, vis_b)},
+                 sample=Sample(Fraction(1, 4)))
+    np.testing.assert_allclose(out.channel("R")[0], [1.8, 3.0, 1.0, 1.5], rtol=1e-6)
+
+
+@pytest.mark.parametrize("fallback, expected", [("dissolve", 1.5), ("nearest", 1.0)])
+def test_inbetween_falls_back_where_neither_side_sees_and_reports_the_share(fallback, expected):
+    vis = np.ones((3, 4), np.float32)
+    vis[0, :2] = 0.0                         # 2 of 12 pixels seen by neither side
+    warnings: list[str] = []
+    out = run_op(BLEND, ib(fallback=fallback), {"a": warped(1.0, vis), "b": warped(3.0, vis)},
+                 sample=Sample(Fraction(1, 4)), warnings=warnings)
+    np.testing.assert_allclose(out.channel("R")[0, :2], expected, rtol=1e-6)
+    np.testing.assert_allclose(out.channel("R")[1:], 1.5, rtol=1e-6)
+    assert out.meta["inbetween.fallback_share"] == pytest.approx(2 / 12)
+    assert len(warnings) == 1 and "16.67 %" in warnings[0] and fallback in warnings[0]
+
+
+def test_inbetween_fades_to_the_fallback_below_the_threshold():
+    # max vis 0.1 with threshold 0.4: a quarter of the seen mix, three quarters of the fallback
+    out = run_op(BLEND, ib(threshold=0.4), {"a": warped(1.0, 0.1), "b": warped(3.0, 0.0)},
+                 sample=Sample(Fraction(1, 2)))
+    np.testing.assert_allclose(out.pixels, 0.25 * 1.0 + 0.75 * 2.0, rtol=1e-6)
+
+
+def test_inbetween_integer_sample_passes_a_bit_for_bit():
+    a = warped(1.0, 0.3)
+    out = run_op(BLEND, ib(), {"a": a}, sample=Sample(12))
+    assert out is a
+
+
+def test_inbetween_bad_input():
+    with pytest.raises(OpError) as err:
+        run_op(BLEND, ib(), {"a": warped(1.0, 1.0), "b": const_image(1.0)}, sample=Sample(Fraction(1, 2)))
+    assert err.value.field == "b" and "warp" in err.value.fix
+    with pytest.raises(OpError) as err:
+        run_op(BLEND, ib(), {"a": warped(1.0, 1.0)}, sample=Sample(Fraction(1, 2)))
+    assert err.value.field == "b"
+    assert [p.field for p in BLEND.check_links(ib(), frozenset({"a"}))] == ["b"]
+    assert [p.field for p in BLEND.check_links(ib(), frozenset({"a", "b", "c"}))] == ["c"]
+    with pytest.raises(pydantic.ValidationError):
+        ib(mix=0.5)
+    with pytest.raises(pydantic.ValidationError):
+        ib(threshold=0)

@@ -1,0 +1,255 @@
+"""``retime``: which source time each output frame shows.
+
+The node is pull-based: asked for output frame ``k``, it asks its input for the source time
+``s(k)``, an exact fraction, and returns that image unchanged. A whole-frame ``s(k)`` is a real
+frame, passed through bit for bit; a fractional one is an in-between, built upstream (in the
+shipped template by two `warp` nodes and `blend` mode ``inbetween``).
+
+Modes (``first`` is the source's first frame number; output frames are numbered from it too):
+
+- ``slowdown``: ``s(k) = first + (k - first) / slowdown``. ``slowdown`` 2 plays at half speed
+  (every source frame, then an in-between); below 1 it speeds up (0.5 shows every other frame).
+  Source frames ``first..last`` become output frames ``first..first + floor((last - first) *
+  slowdown)``.
+- ``rate``: frame-rate conversion at constant speed. Output frame ``k`` is displayed at time
+  ``(k - first) / to_rate`` seconds after the first, and shows the source at that time:
+  ``s(k) = first + (k - first) * from_rate / to_rate``. Rates are exact rationals:
+  ``'24000/1001'``, ``25``, and the decimal labels ``23.976`` (23.98), ``29.97``, ``59.94`` stand
+  for 24000/1001, 30000/1001, 60000/1001 (SMPTE ST 12-1 counts these rates that way; the labels
+  are common practice). Output frames ``first..first + floor((last - first) * to / from)``.
+- ``curve``: keys ``[output_frame, source_time]`` (absolute frame numbers), interpolated
+  ``linear`` or ``smooth`` (monotone cubic Hermite, Fritsch & Carlson 1980 with the slopes of
+  Fritsch & Butland 1984: it never overshoots its keys, so two keys with the same source time
+  hold that frame). Output frames ``first key..last key``; beyond the end keys the curve stays
+  flat.
+
+Out of range: a source time outside the source frames is an error by default, reported before
+anything renders (``midframe check`` with the variables set, or the start of ``midframe run``),
+naming the key; ``out_of_range: hold`` clamps it to ``first..last`` instead (a freeze on the end
+frame).
+
+Why ``first`` (and, for ``hold``, ``last``) are params: an operator's ``needs`` sees only its params
+and the sample, not its input's frame range, so the source range cannot be taken from the input
+there. The frames hook, which does see it, checks the params against it and names the right
+value when they differ.
+
+Speed-ups here skip source frames without motion blur (no shutter synthesis yet), which can
+strobe on fast motion; check fast speed-ups on a screen before delivery (and see ITU-R BT.1702
+on flashing images where the picture has bright, fast changes).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from fractions import Fraction
+from typing import Any, Literal, Union
+
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
+
+from graphcore.errors import OpError
+from graphcore.image import Image
+from graphcore.registry.operator import FrameRange, OpContext, Operator, Port
+from graphcore.sample import Sample
+from operators.inbetween._timing import (canonical, linear_curve, parse_positive, parse_rate, parse_time,
+                                         pchip_slopes, smooth_curve)
+
+__all__ = ["RETIME", "RetimeParams", "source_time", "retime_needs", "output_range"]
+
+Number = Union[int, float, str]
+
+
+class RetimeParams(BaseModel):
+    """Params of ``retime``. Numbers are stored as exact text (``'5/2'``), so ``2.5`` and ``'5/2'``
+    are the same params (and the same cache key)."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    mode: Literal["slowdown", "rate", "curve"] = Field(
+        "slowdown", description="'slowdown': constant speed change; 'rate': frame-rate conversion; "
+                                "'curve': keyed output-frame -> source-time curve.")
+    slowdown: Number = Field(
+        1, description="Mode 'slowdown': output frame k shows source time first + (k - first) / "
+                       "slowdown; > 1 slows down, < 1 speeds up. A number or exact text such as '5/2'.")
+    from_rate: Number | None = Field(
+        None, description="Mode 'rate': the source's frame rate, e.g. 24, '24000/1001' or 23.976 "
+                          "(= 24000/1001; likewise 29.97, 59.94).")
+    to_rate: Number | None = Field(
+        None, description="Mode 'rate': the output's frame rate, same forms as from_rate.")
+    keys: tuple[tuple[int, Number], ...] | None = Field(
+        None, min_length=1,
+        description="Mode 'curve': [output_frame, source_time] pairs with increasing output frames; "
+                    "source times may be fractional ('1003/2' or 501.5). Equal source times hold.")
+    interpolation: Literal["linear", "smooth"] = Field(
+        "linear", description="Mode 'curve': 'linear' between keys, or 'smooth' (monotone cubic, "
+                              "no overshoot).")
+    out_of_range: Literal["error", "hold"] = Field(
+        "error", description="A source time outside the source frames: 'error' (reported before "
+                             "rendering), or 'hold' (clamped to first..last; needs 'first' and 'last').")
+    first: int | None = Field(
+        None, description="The source's first frame number (output frames are numbered from it). "
+                          "Needed by modes 'slowdown' and 'rate' and by out_of_range 'hold'; checked "
+                          "against the input's frames.")
+    last: int | None = Field(
+        None, description="The source's last frame number; needed only by out_of_range 'hold'; "
+                          "checked against the input's frames.")
+
+    @field_validator("slowdown", mode="before")
+    @classmethod
+    def _slowdown(cls, v: Any) -> str:
+        return canonical(parse_positive(v, "slowdown"))
+
+    @field_validator("from_rate", "to_rate", mode="before")
+    @classmethod
+    def _rate(cls, v: Any) -> str | None:
+        return None if v is None else canonical(parse_rate(v))
+
+    @field_validator("keys", mode="before")
+    @classmethod
+    def _keys(cls, v: Any) -> Any:
+        if v is None:
+            return None
+        out = []
+        for i, pair in enumerate(v):
+            if not isinstance(pair, (list, tuple)) or len(pair) != 2:
+                raise ValueError(f"key {i} is {pair!r}; write each key as [output_frame, source_time]")
+            frame, when = pair
+            if isinstance(frame, bool) or not isinstance(frame, int):
+                if isinstance(frame, float) and frame.is_integer():
+                    frame = int(frame)
+                else:
+                    raise ValueError(f"key {i}: output frame {frame!r} must be a whole number")
+            out.append((frame, canonical(parse_time(when))))
+        frames = [f for f, _ in out]
+        for i in range(1, len(frames)):
+            if frames[i] <= frames[i - 1]:
+                raise ValueError(f"key {i}: output frame {frames[i]} does not come after "
+                                 f"{frames[i - 1]}; list keys by increasing output frame, one per frame")
+        return tuple(out)
+
+    @model_validator(mode="after")
+    def _check(self) -> "RetimeParams":
+        if self.mode == "rate" and (self.from_rate is None or self.to_rate is None):
+            raise ValueError("mode 'rate' needs both 'from_rate' and 'to_rate' (e.g. 24 and 25)")
+        if self.mode == "curve" and self.keys is None:
+            raise ValueError("mode 'curve' needs 'keys': [[output_frame, source_time], ...]")
+        if self.mode in ("slowdown", "rate") and self.first is None:
+            raise ValueError(f"mode '{self.mode}' needs 'first', the source's first frame number "
+                             "(the origin of the mapping)")
+        if self.out_of_range == "hold" and (self.first is None or self.last is None):
+            raise ValueError("out_of_range 'hold' needs 'first' and 'last', the source's frame range, "
+                             "to clamp to")
+        if self.first is not None and self.last is not None and self.last < self.first:
+            raise ValueError(f"'last' ({self.last}) is before 'first' ({self.first})")
+        return self
+
+
+def _factor(params: RetimeParams) -> Fraction:
+    """Source frames per output frame (modes slowdown and rate)."""
+    if params.mode == "slowdown":
+        return 1 / Fraction(params.slowdown)
+    return Fraction(params.from_rate) / Fraction(params.to_rate)  # type: ignore[arg-type]
+
+
+def _keys(params: RetimeParams) -> tuple[list[Fraction], list[Fraction]]:
+    keys = params.keys or ()
+    return [Fraction(f) for f, _ in keys], [Fraction(s) for _, s in keys]
+
+
+def source_time(params: RetimeParams, frame: Fraction | int) -> Fraction:
+    """The exact source time output ``frame`` shows (before ``out_of_range`` handling)."""
+    k = Fraction(frame)
+    if params.mode in ("slowdown", "rate"):
+        first = Fraction(params.first)  # type: ignore[arg-type]
+        return first + (k - first) * _factor(params)
+    xs, ys = _keys(params)
+    if params.interpolation == "linear":
+        return linear_curve(xs, ys, k)
+    return smooth_curve(xs, ys, k, pchip_slopes(xs, ys))
+
+
+def _clamped(params: RetimeParams, s: Fraction) -> Fraction:
+    if params.out_of_range == "hold":
+        return min(max(s, Fraction(params.first)), Fraction(params.last))  # type: ignore[arg-type]
+    return s
+
+
+def retime_needs(params: RetimeParams, sample: Sample) -> dict[str, Sample]:
+    """The input at the source time of ``sample.frame``, same view."""
+    return {"image": sample.at_frame(_clamped(params, source_time(params, sample.frame)))}
+
+
+def output_range(params: RetimeParams, source: FrameRange) -> FrameRange:
+    """Output frames for source frames ``source`` (see the module docstring)."""
+    if params.mode == "curve":
+        frames = [f for f, _ in params.keys or ()]
+        return FrameRange(frames[0], frames[-1])
+    span = (source.last - source.first) / _factor(params)
+    return FrameRange(source.first, source.first + math.floor(span))
+
+
+def _frames(params: RetimeParams, inputs: Mapping[str, FrameRange | None]) -> FrameRange | None:
+    src = inputs.get("image")
+    if src is None:
+        if params.mode == "curve":
+            return output_range(params, FrameRange(0, 0))
+        return None
+    for name, value, real in (("first", params.first, src.first), ("last", params.last, src.last)):
+        if value is not None and value != real:
+            raise OpError(f"'{name}' is {value} but the source's frames are {src}", field=name,
+                          fix=f"set {name} to {real} (with graphs/retime.json: --set {name}={real})")
+    if params.mode == "curve" and params.out_of_range == "error":
+        for i, (frame, when) in enumerate(params.keys or ()):
+            if not src.first <= Fraction(when) <= src.last:
+                raise OpError(f"key {i} shows source time {when} at output frame {frame}, outside the "
+                              f"source frames {src}", field="keys",
+                              fix=f"keep source times within {src}, or set out_of_range to 'hold'")
+    return output_range(params, src)
+
+
+def retime(params: RetimeParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
+    """Compute ``retime`` at ``ctx.sample``: the input at the source time, unchanged.
+
+    Parameters
+    ----------
+    params : RetimeParams
+    inputs : mapping
+        ``"image"``: the Image at the source time (None when that lies outside the input's frames).
+    ctx : OpContext
+
+    Returns
+    -------
+    Image
+        The input image itself (pixels, channels and metadata untouched).
+
+    Raises
+    ------
+    OpError
+        ``field='keys'`` (curve) or ``field='first'``: the source time lies outside the source frames.
+    """
+    image = inputs.get("image")
+    if image is None:
+        when = _clamped(params, source_time(params, ctx.sample.frame))
+        field = "keys" if params.mode == "curve" else "first"
+        raise OpError(f"output frame {ctx.sample.frame} shows source time {when}, outside the source "
+                      "frames", field=field,
+                      fix="render only the output frames the retime maps into the source (leave "
+                          "--frames out), or set out_of_range to 'hold'")
+    return image
+
+
+RETIME = Operator(
+    name="retime",
+    version=1,
+    summary="Maps each output frame to an exact source time: slow-down/speed-up, frame-rate "
+            "conversion, keyed time curve",
+    params=RetimeParams,
+    compute=retime,
+    inputs=(Port("image", "the clip to retime; fractional source times need an in-between upstream "
+                          "(warp + blend mode 'inbetween')"),),
+    doc=__doc__ or "",
+    outputs="the input's image at the source time, unchanged",
+    needs=retime_needs,
+    frames=_frames,
+    edge_samples=True,
+)

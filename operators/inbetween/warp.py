@@ -1,0 +1,301 @@
+"""``warp``: the image at a fractional sample from one neighbour and the vectors between them.
+
+At sample ``f = n + t`` along ``axis`` (``n`` an integer, ``0 < t < 1``), side ``previous`` builds
+the in-between from the image at ``n``, side ``next`` from the image at ``n + 1``. Two such warps
+meet in `blend` (mode ``inbetween``), which weighs them by time and visibility.
+
+Method (the frame-interpolation algorithm of Baker et al., IJCV 2011, one side at a time):
+
+1. **Vectors of this side.** ``previous``: ``fwd`` of the vector image at ``n`` (n -> n+1);
+   ``next``: ``bwd`` of the vector image at ``n + 1`` (n+1 -> n). ``tau`` is the fraction of the
+   way to travel: ``t`` from ``n``, ``1 - t`` from ``n + 1``.
+2. **Confidence and occlusion of each source pixel.** From the vector image's ``fwd.conf`` /
+   ``fwd.occ`` (``bwd.conf`` / ``bwd.occ`` for ``next``) when present (``vector-smooth``), else
+   by the forward-backward check against the other sample's vectors (Sundaram et al., ECCV
+   2010; `operators.vectors.consistency.fb_consistency`).
+3. **Forward splat** of the vectors to the in-between time with the importance
+   ``exp(sharpness * z)`` (softmax splatting, Niklaus & Liu, CVPR 2020), bilinear weights to
+   the four nearest pixels, normalised; see `operators.inbetween._splat`. The importance is
+   ``z = conf + DEPTH_WEIGHT * front``, a depth-order proxy that needs neither depth nor the
+   other image. ``conf`` decides first: a pixel hidden at the *other* sample (occluded,
+   confidence near 0) is being covered by a nearer surface on its way there, so where it lands
+   together with a consistent pixel, the consistent one (the occluder, in front) wins. Where two
+   consistent surfaces meet (one passes over the other only for a moment), ``front`` (0..1,
+   `operators.inbetween._depth.front_ness`) decides by the ``background`` rule: the surface
+   moving least like the background is in front. ``DEPTH_WEIGHT`` = 0.5 < 1 keeps it from
+   overruling the consistency check. Pixels whose vector leaves the frame cannot be checked and
+   get ``conf = 0.5`` here.
+4. **Hole filling.** Output pixels nothing lands on show content this neighbour does not have
+   (it was hidden in this neighbour). They take the background side's vector along their row and
+   column (`operators.vectors.smooth.fill_occluded`, rule ``background``) so the picture there is
+   at least plausible; their visibility is 0 so `blend` takes them from the other side.
+5. **Backward sampling** of the neighbour at ``x - tau v_t(x)`` with ``filter`` (OpenCV
+   ``remap``; bilinear, bicubic or Lanczos over 8x8), edges repeated. Every channel of the image
+   travels with the same vectors: premultiplied colour, alpha and any other layer.
+
+Output: the neighbour's channels, warped, plus ``inbetween.vis`` (0..1): this side's visibility
+and confidence at each output pixel, ``clip(coverage / FULL_COVERAGE, 0, 1) * reliability``, where
+coverage is the splatted area (0 in holes) and reliability the importance-weighted mean over the
+pixels that landed there of ``conf`` for a visible pixel and ``OCCLUDED_RELIABILITY`` (0.5) for
+one hidden at the other sample (still the only view of that surface: it must not count as
+missing), and 0 where the sampling position lies outside the span of the neighbour's pixel
+centres (the filter would repeat edge values there).
+
+At an integer sample along ``axis`` the node asks only for the image there and returns it
+unchanged, bit for bit, without ``inbetween.vis`` (a real frame is not an in-between).
+
+Bicubic and Lanczos filters overshoot at sharp edges (negative values, alpha outside 0..1 in
+premultiplied images), as any such resampling does; bilinear never does.
+
+References
+----------
+.. [1] Baker, S., Scharstein, D., Lewis, J.P., Roth, S., Black, M.J., Szeliski, R., "A database and
+   evaluation methodology for optical flow", IJCV 92(1), 1-31, 2011.
+.. [2] Niklaus, S. and Liu, F., "Softmax splatting for video frame interpolation", CVPR 2020.
+.. [3] Sundaram, N., Brox, T. and Keutzer, K., "Dense point trajectories by GPU-accelerated large
+   displacement optical flow", ECCV 2010.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from fractions import Fraction
+from typing import Any, Literal
+
+import cv2
+import numpy as np
+from pydantic import BaseModel, ConfigDict, Field
+
+from graphcore.errors import OpError
+from graphcore.image import Image
+from graphcore.registry.operator import OpContext, Operator, Port
+from graphcore.sample import Sample
+from operators.inbetween._depth import front_ness
+from operators.inbetween._splat import FULL_COVERAGE, splat_vectors
+from operators.vectors.channels import BWD, BWD_CONF, BWD_OCC, FWD, FWD_CONF, FWD_OCC
+from operators.vectors.consistency import fb_consistency, target_outside
+
+__all__ = ["WARP", "WarpParams", "warp", "warp_needs", "VIS", "OCCLUDED_RELIABILITY", "along",
+           "split_sample"]
+
+#: Channel holding a side's visibility/confidence at each output pixel (0..1).
+VIS = "inbetween.vis"
+#: Reliability of a source pixel that is hidden at the other sample (see the module docstring).
+OCCLUDED_RELIABILITY = 0.5
+#: Confidence used for the importance of a pixel whose vector leaves the frame (cannot be checked).
+OUTSIDE_Z = 0.5
+#: Weight of the depth-order proxy ``front`` against the confidence in the importance.
+DEPTH_WEIGHT = 0.5
+
+_FILTERS = {"bilinear": cv2.INTER_LINEAR, "bicubic": cv2.INTER_CUBIC, "lanczos": cv2.INTER_LANCZOS4}
+
+
+class WarpParams(BaseModel):
+    """Params of ``warp``."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    side: Literal["previous", "next"] = Field(
+        ..., description="Which neighbour to build from: 'previous' (the image at floor f) or "
+                         "'next' (the image at floor f + 1).")
+    axis: Literal["frame", "view"] = Field(
+        "frame", description="The axis the in-between lies on: 'frame' (time) or 'view' (cameras "
+                             "of a rig).")
+    filter: Literal["bilinear", "bicubic", "lanczos"] = Field(
+        "bilinear", description="Resampling filter for the image: 'bilinear' (never overshoots), "
+                                "'bicubic', 'lanczos' (8x8; sharpest, rings at hard edges).")
+    sharpness: float = Field(
+        10.0, ge=0.0, le=50.0,
+        description="alpha of the splatting importance exp(alpha * confidence): how firmly a "
+                    "consistent surface wins over one being covered where both land on a pixel; "
+                    "0 averages them.")
+    background: Literal["dominant", "slower"] = Field(
+        "dominant", description="How the farther surface is recognised, to fill holes from it and to "
+                                "put it behind where two surfaces meet: 'dominant' = it moves with "
+                                "the frame's dominant motion; 'slower' = it has the smaller vector "
+                                "(locked-off camera, parallel stereo).")
+
+
+def along(sample: Sample, axis: str) -> Fraction:
+    """The coordinate of ``sample`` on ``axis`` ('frame' or 'view')."""
+    return sample.frame if axis == "frame" else sample.view
+
+
+def split_sample(sample: Sample, axis: str) -> tuple[int, Fraction]:
+    """``(n, t)`` with ``along(sample, axis) = n + t``, ``n`` an integer, ``0 <= t < 1``."""
+    pos = along(sample, axis)
+    n = math.floor(pos)
+    return n, pos - n
+
+
+def _at(sample: Sample, axis: str, n: int) -> Sample:
+    return sample.at_frame(n) if axis == "frame" else sample.at_view(n)
+
+
+def warp_needs(params: WarpParams, sample: Sample) -> dict[str, Sample]:
+    """Integer sample: the image there only. Fractional ``n + t``: the image at the neighbour
+    (``n`` or ``n + 1``) and the vectors at ``n`` and ``n + 1``."""
+    n, t = split_sample(sample, params.axis)
+    if t == 0:
+        return {"image": sample}
+    lo, hi = _at(sample, params.axis, n), _at(sample, params.axis, n + 1)
+    return {"image": lo if params.side == "previous" else hi, "vectors": (lo, hi)}
+
+
+def link_problems(params: WarpParams, connected: frozenset[str]) -> list[OpError]:
+    """Both ports must be connected (also run by ``midframe check``)."""
+    out = []
+    if "image" not in connected:
+        out.append(OpError("input 'image' is not connected", field="image",
+                           fix="connect the plate to build the in-between from to 'image'"))
+    if "vectors" not in connected:
+        out.append(OpError("input 'vectors' is not connected: an in-between needs the motion vectors "
+                           "between its neighbours", field="vectors",
+                           fix="connect a vector-smooth (or flow-estimate) node to 'vectors'"))
+    return out
+
+
+def _plane(img: Image, names: tuple[str, ...]) -> np.ndarray:
+    return np.stack([np.nan_to_num(img.channel(c), nan=0.0, posinf=0.0, neginf=0.0) for c in names], axis=2)
+
+
+def _require(img: Image | None, names: tuple[str, ...], where: str) -> Image:
+    if img is None:
+        raise OpError(f"no vectors {where}: an in-between needs both of its neighbours",
+                      field="vectors", fix="render in-betweens only between two existing samples")
+    missing = [c for c in names if c not in img.channels]
+    if missing:
+        raise OpError(f"the vectors {where} lack channel{'s' if len(missing) > 1 else ''} "
+                      f"{', '.join(missing)} (they have {', '.join(img.channels)})", field="vectors",
+                      fix="connect a vector-smooth or flow-estimate node (channels fwd.x fwd.y bwd.x "
+                          "bwd.y) to 'vectors'")
+    return img
+
+
+def _confidence(own: Image, other: Image, vec: np.ndarray, fwd_side: bool) -> tuple[np.ndarray, np.ndarray]:
+    """(conf, occ) of this side's source pixels: from the vector image's channels when present,
+    else from the forward-backward check against the other sample's opposite vectors."""
+    conf_name, occ_name = (FWD_CONF, FWD_OCC) if fwd_side else (BWD_CONF, BWD_OCC)
+    if own.has(conf_name):
+        conf = np.clip(np.nan_to_num(own.channel(conf_name), nan=0.0), 0.0, 1.0)
+        occ = (own.channel(occ_name) > 0.5) if own.has(occ_name) else (conf < 0.5)
+        return conf.astype(np.float32), occ
+    back = _plane(other, BWD if fwd_side else FWD)
+    conf, occ = fb_consistency(vec, back)
+    return conf, occ > 0.5
+
+
+def _remap(px: np.ndarray, mx: np.ndarray, my: np.ndarray, interp: int) -> np.ndarray:
+    """OpenCV remap of any number of channels (it takes at most 4 at a time)."""
+    out = np.empty(mx.shape + (px.shape[2],), np.float32)
+    for c in range(0, px.shape[2], 4):
+        part = cv2.remap(np.ascontiguousarray(px[:, :, c:c + 4]), mx, my, interp,
+                         borderMode=cv2.BORDER_REPLICATE)
+        out[:, :, c:c + 4] = part.reshape(mx.shape + (-1,))
+    return out
+
+
+def warp(params: WarpParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
+    """Compute ``warp`` at ``ctx.sample``.
+
+    Parameters
+    ----------
+    params : WarpParams
+    inputs : mapping
+        ``"image"``: Image, shape (H, W, C), the neighbour (any channels: premultiplied R G B, A,
+        other layers). ``"vectors"``: tuple (at n, at n + 1) of vector Images, shape (H, W, >= 4),
+        with ``fwd.x fwd.y bwd.x bwd.y`` and optionally ``fwd.conf bwd.conf fwd.occ bwd.occ``
+        (`operators.vectors.channels`); None entries beyond the sequence. At an integer sample
+        only ``"image"`` is given.
+    ctx : OpContext
+
+    Returns
+    -------
+    Image, shape (H, W, C + 1)
+        The image's channels warped to the in-between, then ``inbetween.vis``. At an integer
+        sample: the input image itself (C channels), bit for bit.
+
+    Raises
+    ------
+    OpError
+        ``field='image'``: no image at the neighbour (the sequence ends there); ``field='vectors'``:
+        no vectors or missing vector channels, or vectors of another size than the image.
+    """
+    image = inputs.get("image")
+    n, t = split_sample(ctx.sample, params.axis)
+    word = params.axis
+    if image is None:
+        k = n if params.side == "previous" else n + 1
+        raise OpError(f"no {word} {k} to build the in-between at {ctx.sample} from: an in-between "
+                      f"needs the {word}s on both sides of it", field="image",
+                      fix=f"render in-betweens only between two existing {word}s (a sequence of one "
+                          f"{word} has none)")
+    if t == 0:
+        return image  # a real sample: unchanged, bit for bit
+    vectors = inputs.get("vectors")
+    if not isinstance(vectors, tuple) or len(vectors) != 2:
+        raise OpError("input 'vectors' is not connected: an in-between needs the motion vectors "
+                      "between its neighbours", field="vectors",
+                      fix="connect a vector-smooth (or flow-estimate) node to 'vectors'")
+    lo = _require(vectors[0], FWD + BWD, f"at {word} {n}")
+    hi = _require(vectors[1], FWD + BWD, f"at {word} {n + 1}")
+    for v, k in ((lo, n), (hi, n + 1)):
+        if v.size != image.size:
+            raise OpError(f"the vectors at {word} {k} are {v.width}x{v.height} but the image is "
+                          f"{image.width}x{image.height}", field="vectors",
+                          fix="estimate the vectors at the image's resolution, or add a `resize` node")
+    previous = params.side == "previous"
+    own, other = (lo, hi) if previous else (hi, lo)
+    vec = _plane(own, FWD if previous else BWD)
+    tau = float(t) if previous else float(1 - t)
+
+    # Phase 1: confidence of the source pixels -> importance and reliability.
+    conf, occ = _confidence(own, other, vec, previous)
+    front = front_ness(vec, ~occ, params.background)
+    z = np.where(target_outside(vec), np.float32(OUTSIDE_Z), conf) + np.float32(DEPTH_WEIGHT) * front
+    rel = np.where(occ, np.float32(OCCLUDED_RELIABILITY), conf)
+    # Phase 2: splat the vectors to the in-between time, fill the holes.
+    sp = splat_vectors(vec, tau, z, rel, sharpness=params.sharpness)
+    vt = sp.vectors
+    if sp.holes.any() and not sp.holes.all():
+        from operators.vectors.smooth import fill_occluded
+
+        vt = fill_occluded(vt, sp.holes.astype(np.float32), rule=params.background)
+    # Phase 3: sample the neighbour where each output pixel's content was.
+    h, w = image.height, image.width
+    mx = np.arange(w, dtype=np.float32)[None, :] - np.float32(tau) * vt[:, :, 0]
+    my = np.arange(h, dtype=np.float32)[:, None] - np.float32(tau) * vt[:, :, 1]
+    warped = _remap(np.asarray(image.pixels), mx, my, _FILTERS[params.filter])
+    vis = np.clip(sp.coverage / np.float32(FULL_COVERAGE), 0.0, 1.0) * sp.reliability
+    vis[sp.holes] = 0.0
+    vis[(mx < 0) | (mx > w - 1) | (my < 0) | (my > h - 1)] = 0.0   # edge values repeated: unseen
+
+    keep = [i for i, c in enumerate(image.channels) if c != VIS]
+    channels = tuple(image.channels[i] for i in keep) + (VIS,)
+    out = np.concatenate([warped[:, :, keep], vis[:, :, None].astype(np.float32)], axis=2)
+    meta = dict(image.meta)
+    meta["inbetween.side"] = params.side
+    meta["inbetween.holes"] = float(sp.holes.mean())
+    return Image(out, channels, meta)
+
+
+WARP = Operator(
+    name="warp",
+    version=1,
+    summary="The image at a fractional frame (or view) from one neighbour and the vectors: splat, "
+            "fill holes, resample; with this side's visibility",
+    params=WarpParams,
+    compute=warp,
+    inputs=(
+        Port("image", "the plate (all channels travel: premultiplied colour, alpha, other layers)"),
+        Port("vectors", "vector images (fwd.x fwd.y bwd.x bwd.y, optionally fwd.conf bwd.conf fwd.occ "
+                        "bwd.occ) from vector-smooth or flow-estimate, asked for at both neighbours"),
+    ),
+    doc=__doc__ or "",
+    outputs="the image's channels warped to the in-between, plus inbetween.vis (0..1); at an integer "
+            "sample the image unchanged",
+    needs=warp_needs,
+    check_links=link_problems,
+    edge_samples=True,
+)
