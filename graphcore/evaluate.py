@@ -28,7 +28,7 @@ from graphcore.cache import Cache
 from graphcore.errors import InputError, MidframeError, OpError
 from graphcore.image import Image
 from graphcore.keys import node_key
-from graphcore.registry import FrameRange, OpContext, Operator, Registry, default_registry
+from graphcore.registry import FrameRange, InputRange, OpContext, Operator, Registry, default_registry
 from graphcore.sample import Sample
 from graphcore.spec import Graph
 
@@ -100,7 +100,11 @@ class Evaluator:
         node = self.graph.nodes[nid]
         op = self.ops[nid]
         try:
-            asked = op.needs(node.params, sample)
+            if op.needs_ranges:
+                ranges = {port: InputRange(self.frames(src), self.views(src)) for port, src in node.inputs.items()}
+                asked = op.needs(node.params, sample, ranges)
+            else:
+                asked = op.needs(node.params, sample)
         except InputError as exc:
             raise self._fill(exc, nid) from None
         out: list[Request] = []

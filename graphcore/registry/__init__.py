@@ -13,9 +13,9 @@ import logging
 from dataclasses import dataclass
 from importlib.metadata import EntryPoint, entry_points
 
-from graphcore.registry.operator import FrameRange, OpContext, Operator, PluginError, Port
+from graphcore.registry.operator import FrameRange, InputRange, OpContext, Operator, PluginError, Port
 
-__all__ = ["Registry", "Operator", "Port", "OpContext", "FrameRange", "PluginError", "default_registry",
+__all__ = ["Registry", "Operator", "Port", "OpContext", "FrameRange", "InputRange", "PluginError", "default_registry",
            "ENTRY_POINT_GROUP"]
 
 ENTRY_POINT_GROUP = "midframe.operators"

@@ -12,6 +12,9 @@ An operator never touches the cache, the graph or the command line. The evaluato
 - ``frames(params, input_frames)``: the integer frame range this node has data for, given its
   inputs' ranges (``read`` discovers it on disk). Default: the intersection of connected inputs.
 - ``views(params, input_views)``: likewise for the integer views (camera numbers) of a rig.
+- ``needs_ranges``: if True, ``needs`` is called as ``needs(params, sample, ranges)`` with
+  ``ranges[port] = InputRange(frames, views)`` of each connected input (``retime`` numbers its
+  output from the source's first frame without being told it).
 - ``edge_samples``: if True, an input sample that ``needs`` asks for beyond the input's known
   frame or view range arrives as ``None`` (the last frame has no next one) instead of failing.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
@@ -37,7 +40,7 @@ import pydantic
 from graphcore.image import Image
 from graphcore.sample import Sample
 
-__all__ = ["Port", "Operator", "OpContext", "FrameRange", "PluginError"]
+__all__ = ["Port", "Operator", "OpContext", "FrameRange", "InputRange", "PluginError"]
 
 
 class PluginError(Exception):
@@ -80,6 +83,14 @@ class FrameRange:
 
     def __str__(self) -> str:
         return f"{self.first}-{self.last}"
+
+
+@dataclass(frozen=True)
+class InputRange:
+    """The integer frames and views an input has data for (None: unbounded / not known)."""
+
+    frames: FrameRange | None
+    views: FrameRange | None
 
 
 @dataclass(frozen=True)
@@ -175,6 +186,7 @@ class Operator:
     targets: Callable[[Any, Sequence[int]], Sequence[str]] | None = None
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
     edge_samples: bool = False
+    needs_ranges: bool = False
     canonical_sample: Callable[[Any, Sample], Sample] | None = None
     sink: bool = False
     cacheable: bool = True

@@ -28,10 +28,9 @@ anything renders (``midframe check`` with the variables set, or the start of ``m
 naming the key; ``out_of_range: hold`` clamps it to ``first..last`` instead (a freeze on the end
 frame).
 
-Why ``first`` (and, for ``hold``, ``last``) are params: an operator's ``needs`` sees only its params
-and the sample, not its input's frame range, so the source range cannot be taken from the input
-there. The frames hook, which does see it, checks the params against it and names the right
-value when they differ.
+``first`` and ``last`` default to the input's own frame range (the engine passes it to ``needs``);
+set them only to pin the mapping's origin or the hold range, and they are checked against the
+input's frames.
 
 Speed-ups here skip source frames without motion blur (no shutter synthesis yet), which can
 strobe on fast motion; check fast speed-ups on a screen before delivery (and see ITU-R BT.1702
@@ -49,7 +48,7 @@ from pydantic import BaseModel, ConfigDict, Field, field_validator, model_valida
 
 from graphcore.errors import OpError
 from graphcore.image import Image
-from graphcore.registry.operator import FrameRange, OpContext, Operator, Port
+from graphcore.registry.operator import InputRange, FrameRange, OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.inbetween._timing import (canonical, linear_curve, parse_positive, parse_rate, parse_time,
                                          pchip_slopes, smooth_curve)
@@ -85,14 +84,13 @@ class RetimeParams(BaseModel):
                               "no overshoot).")
     out_of_range: Literal["error", "hold"] = Field(
         "error", description="A source time outside the source frames: 'error' (reported before "
-                             "rendering), or 'hold' (clamped to first..last; needs 'first' and 'last').")
+                             "rendering), or 'hold' (clamped to first..last).")
     first: int | None = Field(
         None, description="The source's first frame number (output frames are numbered from it). "
-                          "Needed by modes 'slowdown' and 'rate' and by out_of_range 'hold'; checked "
-                          "against the input's frames.")
+                          "Default: the input's first frame; if given, it is checked against it.")
     last: int | None = Field(
-        None, description="The source's last frame number; needed only by out_of_range 'hold'; "
-                          "checked against the input's frames.")
+        None, description="The source's last frame number (the end of a hold). Default: the input's "
+                          "last frame; if given, it is checked against it.")
 
     @field_validator("slowdown", mode="before")
     @classmethod
@@ -133,12 +131,6 @@ class RetimeParams(BaseModel):
             raise ValueError("mode 'rate' needs both 'from_rate' and 'to_rate' (e.g. 24 and 25)")
         if self.mode == "curve" and self.keys is None:
             raise ValueError("mode 'curve' needs 'keys': [[output_frame, source_time], ...]")
-        if self.mode in ("slowdown", "rate") and self.first is None:
-            raise ValueError(f"mode '{self.mode}' needs 'first', the source's first frame number "
-                             "(the origin of the mapping)")
-        if self.out_of_range == "hold" and (self.first is None or self.last is None):
-            raise ValueError("out_of_range 'hold' needs 'first' and 'last', the source's frame range, "
-                             "to clamp to")
         if self.first is not None and self.last is not None and self.last < self.first:
             raise ValueError(f"'last' ({self.last}) is before 'first' ({self.first})")
         return self
@@ -156,27 +148,46 @@ def _keys(params: RetimeParams) -> tuple[list[Fraction], list[Fraction]]:
     return [Fraction(f) for f, _ in keys], [Fraction(s) for _, s in keys]
 
 
-def source_time(params: RetimeParams, frame: Fraction | int) -> Fraction:
-    """The exact source time output ``frame`` shows (before ``out_of_range`` handling)."""
+def source_time(params: RetimeParams, frame: Fraction | int, first: int | None = None) -> Fraction:
+    """The exact source time output ``frame`` shows (before ``out_of_range`` handling); ``first``
+    is the source's first frame (default: ``params.first``)."""
     k = Fraction(frame)
     if params.mode in ("slowdown", "rate"):
-        first = Fraction(params.first)  # type: ignore[arg-type]
-        return first + (k - first) * _factor(params)
+        origin = params.first if first is None else first
+        if origin is None:
+            raise OpError("cannot tell the source's first frame: the input has no known frame range",
+                          field="first", fix="set 'first' to the source's first frame number")
+        f0 = Fraction(origin)
+        return f0 + (k - f0) * _factor(params)
     xs, ys = _keys(params)
     if params.interpolation == "linear":
         return linear_curve(xs, ys, k)
     return smooth_curve(xs, ys, k, pchip_slopes(xs, ys))
 
 
-def _clamped(params: RetimeParams, s: Fraction) -> Fraction:
+def _source_range(params: RetimeParams, known: FrameRange | None) -> tuple[int | None, int | None]:
+    """(first, last) of the source: the params where given, else the input's range."""
+    first = params.first if params.first is not None else (known.first if known else None)
+    last = params.last if params.last is not None else (known.last if known else None)
+    return first, last
+
+
+def _clamped(params: RetimeParams, s: Fraction, first: int | None, last: int | None) -> Fraction:
     if params.out_of_range == "hold":
-        return min(max(s, Fraction(params.first)), Fraction(params.last))  # type: ignore[arg-type]
+        if first is None or last is None:
+            raise OpError("out_of_range 'hold' needs the source's frame range, and the input has none",
+                          field="out_of_range", fix="set 'first' and 'last', or use out_of_range 'error'")
+        return min(max(s, Fraction(first)), Fraction(last))
     return s
 
 
-def retime_needs(params: RetimeParams, sample: Sample) -> dict[str, Sample]:
-    """The input at the source time of ``sample.frame``, same view."""
-    return {"image": sample.at_frame(_clamped(params, source_time(params, sample.frame)))}
+def retime_needs(params: RetimeParams, sample: Sample,
+                 ranges: Mapping[str, InputRange] | None = None) -> dict[str, Sample]:
+    """The input at the source time of ``sample.frame``, same view; ``ranges`` (from the engine)
+    gives the input's frame range, used where ``first``/``last`` are not set."""
+    known = ranges["image"].frames if ranges and "image" in ranges else None
+    first, last = _source_range(params, known)
+    return {"image": sample.at_frame(_clamped(params, source_time(params, sample.frame, first), first, last))}
 
 
 def output_range(params: RetimeParams, source: FrameRange) -> FrameRange:
@@ -197,7 +208,7 @@ def _frames(params: RetimeParams, inputs: Mapping[str, FrameRange | None]) -> Fr
     for name, value, real in (("first", params.first, src.first), ("last", params.last, src.last)):
         if value is not None and value != real:
             raise OpError(f"'{name}' is {value} but the source's frames are {src}", field=name,
-                          fix=f"set {name} to {real} (with graphs/retime.json: --set {name}={real})")
+                          fix=f"set {name} to {real}, or leave it out to use the source's own")
     if params.mode == "curve" and params.out_of_range == "error":
         for i, (frame, when) in enumerate(params.keys or ()):
             if not src.first <= Fraction(when) <= src.last:
@@ -229,9 +240,8 @@ def retime(params: RetimeParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
     """
     image = inputs.get("image")
     if image is None:
-        when = _clamped(params, source_time(params, ctx.sample.frame))
         field = "keys" if params.mode == "curve" else "first"
-        raise OpError(f"output frame {ctx.sample.frame} shows source time {when}, outside the source "
+        raise OpError(f"output frame {ctx.sample.frame} shows a source time outside the source "
                       "frames", field=field,
                       fix="render only the output frames the retime maps into the source (leave "
                           "--frames out), or set out_of_range to 'hold'")
@@ -250,6 +260,7 @@ RETIME = Operator(
     doc=__doc__ or "",
     outputs="the input's image at the source time, unchanged",
     needs=retime_needs,
+    needs_ranges=True,
     frames=_frames,
     edge_samples=True,
 )

@@ -153,14 +153,12 @@ def test_source_time_outside_the_input_arrives_as_none_and_is_a_clear_error():
     ({"slowdown": -2, "first": 1}, "greater than 0"),
     ({"slowdown": "fast", "first": 1}, "not a number"),
     ({"slowdown": float("nan"), "first": 1}, "finite"),
-    ({"slowdown": 2}, "needs 'first'"),
     ({"mode": "rate", "from_rate": 24, "first": 1}, "to_rate"),
     ({"mode": "rate", "from_rate": 24, "to_rate": 0, "first": 1}, "greater than 0"),
     ({"mode": "curve"}, "needs 'keys'"),
     ({"mode": "curve", "keys": [[5, 1], [5, 2]]}, "does not come after"),
     ({"mode": "curve", "keys": [[5, 1, 3]]}, "[output_frame, source_time]"),
     ({"mode": "curve", "keys": [[1.5, 1]]}, "whole number"),
-    ({"mode": "curve", "keys": [[1, 1]], "out_of_range": "hold"}, "'first' and 'last'"),
 ])
 def test_bad_params_are_refused_with_a_reason(kwargs, words):
     with pytest.raises(pydantic.ValidationError) as err:
@@ -171,7 +169,20 @@ def test_bad_params_are_refused_with_a_reason(kwargs, words):
 def test_first_that_is_not_the_source_first_names_the_right_value():
     with pytest.raises(OpError) as err:
         RETIME.frames(RetimeParams(slowdown=2, first=1001), {"image": FrameRange(1, 4)})
-    assert err.value.field == "first" and "first=1" in err.value.fix
+    assert err.value.field == "first" and "set first to 1" in err.value.fix
+
+
+def test_first_and_last_default_to_the_input_range():
+    """The engine hands retime its input's frames (needs_ranges): no 'first' param needed."""
+    from graphcore.registry import InputRange
+
+    p = RetimeParams(slowdown=2)
+    ranges = {"image": InputRange(FrameRange(7, 10), None)}
+    assert retime_needs(p, Sample(8), ranges) == {"image": Sample(F(15, 2))}
+    hold = RetimeParams(mode="curve", keys=[[1, 5], [3, 12]], out_of_range="hold")
+    assert retime_needs(hold, Sample(3), ranges) == {"image": Sample(10)}  # clamped to the input's last
+    with pytest.raises(OpError):
+        retime_needs(p, Sample(8), {"image": InputRange(None, None)})  # nothing to number from
 
 
 def test_declaration():
