@@ -1,9 +1,10 @@
 """The likelihood term: how well a candidate vector field matches ``second`` to ``first``.
 
 The negative log-likelihood at a pixel is a truncated absolute difference of the matching
-features (brightness and its gradients), averaged over a small square patch around the pixel,
-a robust block-matching likelihood in the spirit of Konrad & Dubois (1992). Vectors that point
-outside ``second`` get the truncation value: no evidence either way, so the prior decides.
+features (brightness, its gradients and a soft census signature, ``_pyramid.level``), averaged
+over a small square patch around the pixel, a robust block-matching likelihood in the spirit of
+Konrad & Dubois (1992). Vectors that point outside ``second`` get the fixed cost ``tau_out``:
+no evidence either way, so the prior decides.
 """
 
 from __future__ import annotations
@@ -13,16 +14,13 @@ import numpy as np
 
 from ._grid import outside, warp
 
-_ONES3 = np.ones((1, 3), np.float32)
-
-
 def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarray,
                    cu: np.ndarray, cv: np.ndarray, tau: float, tau_out: float) -> np.ndarray:
     """Truncated feature difference ``min(sum_c |F2_c(x + c) - F1_c(x)|, tau)`` per pixel.
 
     Parameters
     ----------
-    f1, f2 : ndarray, shape (H, W, 3), float32
+    f1, f2 : ndarray, shape (H, W, C), float32
         Matching features of the two images at one level.
     xs, ys : ndarray, shape (H, W), float32
         Pixel grid of that level.
@@ -36,7 +34,7 @@ def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarra
     h, w = cu.shape
     mx = xs + cu
     my = ys + cv
-    diff = cv2.transform(cv2.absdiff(warp(f2, mx, my), f1), _ONES3)
+    diff = cv2.transform(cv2.absdiff(warp(f2, mx, my), f1), np.ones((1, f1.shape[2]), np.float32))
     c = np.minimum(diff, np.float32(tau))
     oob = outside(mx, my, h, w)
     c += oob * (np.float32(tau_out) - c)

@@ -2,7 +2,7 @@
 
 Each level holds what the likelihood and the prior need at that scale: the feature image
 the data term compares (brightness and its gradients, Brox et al. 2004's brightness plus
-gradient constancy), and the edge-aware weights of the Markov random field prior on the
+gradient constancy, and a soft census signature after Zabih & Woodfill 1994), and the edge-aware weights of the Markov random field prior on the
 horizontal and vertical neighbour pairs.
 """
 
@@ -23,8 +23,9 @@ class Level:
 
     Attributes
     ----------
-    feat : ndarray, shape (H, W, 3), float32
-        Matching features: ``brightness_weight * L``, ``dL/dx``, ``dL/dy`` (L = luma).
+    feat : ndarray, shape (H, W, 3 + K), float32
+        Matching features: ``brightness_weight * L``, ``dL/dx``, ``dL/dy`` (L = luma), then the
+        K = 4 soft census channels (``soft_census``; K = 0 when its weight is 0).
     wx : ndarray, shape (H, W - 1), float32
         Prior weight of each horizontal neighbour pair ``(y, x) ~ (y, x + 1)``, in (0, 1].
     wy : ndarray, shape (H - 1, W), float32
@@ -110,11 +111,37 @@ def images(img: np.ndarray, n_levels: int) -> list[np.ndarray]:
     return out
 
 
-def level(cur: np.ndarray, brightness_weight: float, edge_sigma: float, edge_floor: float) -> Level:
-    """Matching features and prior weights of one pyramid image (H, W, C)."""
+# Neighbours of the soft census signature: the 4 pixels 2 px left, right, above and below.
+CENSUS_OFFSETS = ((2, 0), (-2, 0), (0, 2), (0, -2))
+
+
+def soft_census(plane: np.ndarray, weight: float, scale: float) -> list[np.ndarray]:
+    """Soft census signature ``weight * tanh((L(q) - L(p)) / scale)`` for q in ``CENSUS_OFFSETS``.
+
+    A smooth form of the census transform of Zabih & Woodfill (ECCV 1994): each channel says
+    whether a neighbour is brighter or darker than the centre, so it ignores brightness offsets
+    and gains between the two images and still tells apart patches of weak texture (a
+    continuous version so the refinement can linearise it).
+    """
+    h, w = plane.shape
+    pad = cv2.copyMakeBorder(plane, 2, 2, 2, 2, cv2.BORDER_REPLICATE)
+    out = []
+    for dx, dy in CENSUS_OFFSETS:
+        q = pad[2 + dy:2 + dy + h, 2 + dx:2 + dx + w]
+        out.append((np.float32(weight) * np.tanh((q - plane) / np.float32(scale))).astype(np.float32))
+    return out
+
+
+def level(cur: np.ndarray, brightness_weight: float, edge_sigma: float, edge_floor: float,
+          census: float = 0.0, census_scale: float = 0.03) -> Level:
+    """Matching features and prior weights of one pyramid image (H, W, C).
+
+    ``census`` and ``census_scale`` are the weight and softness of ``soft_census`` (0: none).
+    """
     lum = luma(cur)
     gx, gy = gradients(lum)
-    feat = cv2.merge([lum * np.float32(brightness_weight), gx, gy])
+    extra = soft_census(lum, census, census_scale) if census > 0 else []
+    feat = cv2.merge([lum * np.float32(brightness_weight), gx, gy] + extra)
     guide = cv2.GaussianBlur(cur, (3, 3), 0.7)
     guide = guide[:, :, None] if guide.ndim == 2 else guide
     wx, wy = edge_weights(guide, edge_sigma, edge_floor)
