@@ -122,65 +122,6 @@ class DiskCache:
         except (ValueError, KeyError, TypeError) as exc:
             return self._corrupt(key, f"undecodable entry ({exc})")
         self.stats.hits += 1
-        return img
-
-    def put(self, key: str, image: Image) -> None:
-        if key in self._items:
-            self._items.move_to_end(key)
-            return
-        if image.nbytes > self.max_bytes:
-            return
-        self._items[key] = image
-        self._bytes += image.nbytes
-        self.stats.stores += 1
-        while self._bytes > self.max_bytes and self._items:
-            _, old = self._items.popitem(last=False)
-            self._bytes -= old.nbytes
-            self.stats.evictions += 1
-
-    def discard(self, key: str) -> None:
-        img = self._items.pop(key, None)
-        if img is not None:
-            self._bytes -= img.nbytes
-
-    def clear(self) -> None:
-        self._items.clear()
-        self._bytes = 0
-
-
-class DiskCache:
-    """Content-addressed folder of .npy + .json entries, safe to share between processes and hosts."""
-
-    def __init__(self, root: str | os.PathLike[str], max_bytes: int | None = None) -> None:
-        self.root = Path(root)
-        self.max_bytes = max_bytes
-        self.stats = CacheStats()
-        self.root.mkdir(parents=True, exist_ok=True)
-
-    def _paths(self, key: str) -> tuple[Path, Path]:
-        if not key.isalnum():
-            raise ValueError(f"cache key {key!r} is not alphanumeric")
-        folder = self.root / key[:2]
-        return folder / f"{key}.npy", folder / f"{key}.json"
-
-    def get(self, key: str) -> Image | None:
-        npy, meta_path = self._paths(key)
-        try:
-            record = json.loads(meta_path.read_text())
-            data = npy.read_bytes()
-        except (FileNotFoundError, NotADirectoryError):
-            self.stats.misses += 1
-            return None
-        except (OSError, ValueError) as exc:
-            return self._corrupt(key, f"unreadable entry ({exc})")
-        if len(data) != record.get("nbytes") or hashlib.sha256(data).hexdigest() != record.get("sha256"):
-            return self._corrupt(key, "content does not match its checksum")
-        try:
-            pixels = np.load(io.BytesIO(data), allow_pickle=False)
-            image = Image(pixels, tuple(record["channels"]), record.get("meta", {}))
-        except (ValueError, KeyError, TypeError) as exc:
-            return self._corrupt(key, f"undecodable entry ({exc})")
-        self.stats.hits += 1
         try:
             os.utime(meta_path)  # recency for pruning
         except OSError:
