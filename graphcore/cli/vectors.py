@@ -52,8 +52,14 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
     channels = _match_channels(first, None)
     _match_channels(second, channels)
     a, b = perceptual(first, channels), perceptual(second, channels)
-    fwd = estimate_pair(a, b, params)
-    bwd = estimate_pair(b, a, params)
+    if engine == "midframe" and min(a.shape[:2]) >= 2:
+        # both directions in one solve: shared pyramids and features
+        from operators.vectors.estimate import estimate_flow_pair
+
+        fwd, bwd = estimate_flow_pair(a, b, quality=quality, search_range=search_range, prefilter=prefilter)
+    else:
+        fwd = estimate_pair(a, b, params)
+        bwd = estimate_pair(b, a, params)
     if raw:
         conf_f, occ_f = fb_consistency(fwd, bwd)
         conf_b, occ_b = fb_consistency(bwd, fwd)

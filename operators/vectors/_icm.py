@@ -70,7 +70,8 @@ def _block_noise(rng: np.random.Generator, h: int, w: int, radius: float, block:
 
 def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, tau: float,
         tau_out: float, patch: int, lam: float, eps: float, jumps: tuple[int, ...], radius: float,
-        block: int, extra: list[tuple[np.ndarray, np.ndarray]] = ()) -> tuple[np.ndarray, np.ndarray]:
+        block: int, extra: list[tuple[np.ndarray, np.ndarray]] = (), data_weight: np.ndarray | None = None,
+        bias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Checkerboard ICM over candidate vectors at one level.
 
     Candidates at each sweep: the pixel's current vector; its neighbours' vectors at the
@@ -78,6 +79,11 @@ def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, 
     offsets of radius ``radius``, ``radius / 2``, ``radius / 4`` (local search, constant over
     ``block``-pixel tiles so the patch likelihood stays meaningful); and the fields in ``extra``
     (e.g. the coarser level's vectors).
+
+    ``data_weight`` (H, W), if given, multiplies the likelihood per pixel (0 at occluded pixels:
+    the prior alone decides there); ``bias = (ref_u, ref_v, beta)`` adds
+    ``beta * (|c_u - ref_u| + |c_v - ref_v|)`` to every candidate's energy (a preference for
+    the reference motion where ``beta`` > 0).
 
     Returns
     -------
@@ -100,6 +106,11 @@ def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, 
             r /= 2
         cands.extend(extra)
         datas = [patch_cost(f1, f2, xs, ys, cu, cv, tau, tau_out, patch) for cu, cv in cands]
+        if data_weight is not None:
+            datas = [d * data_weight for d in datas]
+        if bias is not None:
+            ru, rv, beta = bias
+            datas = [d + beta * (np.abs(cu - ru) + np.abs(cv - rv)) for d, (cu, cv) in zip(datas, cands)]
         for m in masks:
             best_e = None
             bu, bv = u, v

@@ -10,6 +10,7 @@ for motion fields, with ``lam`` their prior weight.
 
 from __future__ import annotations
 
+import cv2
 import numpy as np
 
 
@@ -70,11 +71,21 @@ def irls_weights(u: np.ndarray, v: np.ndarray, wx: np.ndarray, wy: np.ndarray, l
     return sx, sy, total
 
 
-def neighbour_sum(a: np.ndarray, sx: np.ndarray, sy: np.ndarray) -> np.ndarray:
-    """``sum_q s_pq * a_q`` over the 4 neighbours ``q`` of each pixel ``p``."""
-    out = np.zeros(a.shape, np.float32)
-    out[:, :-1] += sx * a[:, 1:]
-    out[:, 1:] += sx * a[:, :-1]
-    out[:-1] += sy * a[1:]
-    out[1:] += sy * a[:-1]
-    return out
+def neighbour_weights(sx: np.ndarray, sy: np.ndarray) -> tuple[np.ndarray, ...]:
+    """The pair weights as four full (H, W) planes: toward the right, left, lower and upper
+    neighbour, 0 where that neighbour does not exist (for ``neighbour_sum``)."""
+    h, w = sx.shape[0], sy.shape[1]
+    right, left, down, up = (np.zeros((h, w), np.float32) for _ in range(4))
+    right[:, :-1] = sx
+    left[:, 1:] = sx
+    down[:-1] = sy
+    up[1:] = sy
+    return right, left, down, up
+
+
+def neighbour_sum(a: np.ndarray, planes: tuple[np.ndarray, ...]) -> np.ndarray:
+    """``sum_q s_pq * a_q`` over the 4 neighbours ``q`` of each pixel ``p`` of an (H, W) plane,
+    ``planes`` from ``neighbour_weights`` (one padded copy of ``a``, four products)."""
+    right, left, down, up = planes
+    p = cv2.copyMakeBorder(a, 1, 1, 1, 1, cv2.BORDER_REPLICATE)
+    return right * p[1:-1, 2:] + left * p[1:-1, :-2] + down * p[2:, 1:-1] + up * p[:-2, 1:-1]

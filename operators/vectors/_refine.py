@@ -14,12 +14,12 @@ import numpy as np
 
 from ._grid import outside, warp
 from ._icm import checkerboard
-from ._prior import irls_weights, neighbour_sum
+from ._prior import irls_weights, neighbour_sum, neighbour_weights
 
 
 def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_d: float,
            eps_s: float, warps: int, iters: int, reweight: int, omega: float,
-           median: int) -> tuple[np.ndarray, np.ndarray]:
+           median: int, data_weight: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Refine the field ``(u, v)`` at one level.
 
     Parameters
@@ -45,6 +45,8 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
     median : int
         Side (3 or 5) of a median filter applied to the field after each warp (0 or 1 for
         none; Sun, Roth & Black 2010 find it removes outliers of the linearisation).
+    data_weight : ndarray, shape (H, W), optional
+        Per-pixel weight of the data term (0 at occluded pixels: the prior fills them).
 
     Returns
     -------
@@ -58,6 +60,8 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
         mx = xs + u
         my = ys + v
         valid = 1.0 - outside(mx, my, h, w)
+        if data_weight is not None:
+            valid = valid * data_weight
         iz = cv2.split(warp(f2, mx, my) - f1)
         ix = cv2.split(0.5 * (warp(f2x, mx, my) + f1x))
         iy = cv2.split(0.5 * (warp(f2y, mx, my) + f1y))
@@ -81,6 +85,7 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
                     b1 += wx_ * cz
                     b2 += wy_ * cz
                 sx, sy, stot = irls_weights(u + du, v + dv, wx, wy, lam, eps_s)
+                planes = neighbour_weights(sx, sy)
                 m11 = a11 + stot + np.float32(1e-9)
                 m22 = a22 + stot + np.float32(1e-9)
                 inv_det = 1.0 / (m11 * m22 - a12 * a12)
@@ -88,8 +93,8 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
                 c1 = -b1 - stot * u
                 c2 = -b2 - stot * v
             for m in masks:
-                r1 = c1 + neighbour_sum(u + du, sx, sy)
-                r2 = c2 + neighbour_sum(v + dv, sx, sy)
+                r1 = c1 + neighbour_sum(u + du, planes)
+                r2 = c2 + neighbour_sum(v + dv, planes)
                 nu = (m22 * r1 - a12 * r2) * inv_det
                 nv = (m11 * r2 - a12 * r1) * inv_det
                 mo = m * om
