@@ -186,8 +186,12 @@ class Evaluator:
             return memo[nid]
         node = self.graph.nodes[nid]
         op = self.ops[nid]
-        inputs = {port: self._range(src, axis, memo) for port, src in node.inputs.items()}
         hook = getattr(op, axis)
+        inputs: dict[str, Any]
+        if hook is not None and op.range_inputs:
+            inputs = {port: InputRange(self.frames(src), self.views(src)) for port, src in node.inputs.items()}
+        else:
+            inputs = {port: self._range(src, axis, memo) for port, src in node.inputs.items()}
         try:
             if hook is not None:
                 rng = hook(node.params, inputs)

@@ -82,17 +82,19 @@ def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:
 
 
 def protected_paths(ev: Evaluator) -> frozenset[str]:
-    """Real paths of every file a source node of the graph reads, over its frame range."""
+    """Real paths of every file a source node of the graph reads, over its frame and view ranges."""
     paths: set[str] = set()
     for nid, op in ev.ops.items():
         if op.sources is None or op.sink:
             continue
         node = ev.graph.nodes[nid]
-        rng = ev.frames(nid)
+        rng, vrng = ev.frames(nid), ev.views(nid)
         frames: Iterable[int] = list(rng) if rng is not None else [0]
+        views: list[int] = list(vrng) if vrng is not None else [0]
         for f in frames:
-            for p in op.sources(node.params, Sample(f)):
-                paths.add(os.path.realpath(p))
+            for v in views:
+                for p in op.sources(node.params, Sample(f, v)):
+                    paths.add(os.path.realpath(p))
     return frozenset(paths)
 
 

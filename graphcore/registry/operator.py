@@ -15,6 +15,9 @@ An operator never touches the cache, the graph or the command line. The evaluato
 - ``needs_ranges``: if True, ``needs`` is called as ``needs(params, sample, ranges)`` with
   ``ranges[port] = InputRange(frames, views)`` of each connected input (``retime`` numbers its
   output from the source's first frame without being told it).
+- ``range_inputs``: if True, the ``frames`` and ``views`` hooks receive ``InputRange(frames, views)``
+  for each connected port instead of the port's range on that axis alone (``view-path`` turns a
+  rig's cameras into output frames).
 - ``edge_samples``: if True, an input sample that ``needs`` asks for beyond the input's known
   frame or view range arrives as ``None`` (the last frame has no next one) instead of failing.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
@@ -187,6 +190,7 @@ class Operator:
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
     edge_samples: bool = False
     needs_ranges: bool = False
+    range_inputs: bool = False
     canonical_sample: Callable[[Any, Sample], Sample] | None = None
     sink: bool = False
     cacheable: bool = True

@@ -9,16 +9,23 @@ Which number picks the file: ``axis="frame"`` uses the sample's frame (a plate n
 without a frame token (``%04d``, ``%d``, ``####``) is one still file used at every sample.
 Plates exist only at integer numbers: asking a sequence for a fractional one is an error (only
 in-between synthesis makes fractional samples).
+
+A rig whose cameras each recorded a sequence has two numbers per file: ``view_token`` names the
+token of ``path`` that holds the camera number, the other one the frame, e.g. path
+``rig/cam%02d/plate.%04d.exr`` with ``view_token`` ``%02d``. Then every camera must hold the same
+contiguous frames, the cameras found on disk are the views, and ``axis`` stays ``frame``.
 """
 
 from __future__ import annotations
 
+import glob
 import os
+import re
 from collections.abc import Mapping
 from typing import Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from graphcore.errors import OpError
 from graphcore.image import COLOR, Image
@@ -55,20 +62,142 @@ class ReadParams(BaseModel):
         "What to do with NaN or infinite pixel values: 'zero' replaces them with 0 and warns "
         "once per file, 'error' stops with an error naming the file, 'keep' passes them on."))
 
+    view_token: str | None = Field(None, description=(
+        "For a rig whose cameras each recorded a sequence: the token in 'path' that holds the "
+        "camera (view) number, the other token being the frame, e.g. path "
+        "'rig/cam%02d/plate.%04d.exr' with view_token '%02d' (forms: %d, %0Nd, a run of #). It "
+        "must occur once in 'path'; 'axis' stays 'frame'."))
+
     @field_validator("path")
     @classmethod
     def valid_path(cls, v: str) -> str:
-        return check_pattern(v)
+        try:
+            return check_pattern(v)
+        except ValueError as exc:
+            if "more than one frame token" in str(exc):
+                return v  # a frame and a camera token: checked with view_token below
+            raise
 
     @field_validator("channels")
     @classmethod
     def valid_channels(cls, v: tuple[str, ...] | None) -> tuple[str, ...] | None:
         return check_channels(v)
 
+    @model_validator(mode="after")
+    def _two_numbers(self) -> "ReadParams":
+        if self.view_token is None:
+            try:
+                check_pattern(self.path)
+            except ValueError as exc:
+                raise ValueError(f"{exc}; if one of them numbers the cameras of a rig, name it in "
+                                 "view_token (e.g. '%02d')") from None
+            return self
+        if self.axis != "frame":
+            raise ValueError("with view_token the path's other token numbers frames: set axis to "
+                             "'frame' (the view comes from view_token)")
+        per_camera = fill_view(self.path, self.view_token, 1)
+        check_pattern(per_camera)
+        if not sequence.is_sequence(per_camera):
+            raise ValueError(f"path {self.path!r} has no frame token besides the view_token "
+                             f"{self.view_token!r}; for one still per camera use axis 'view' "
+                             "without view_token")
+        return self
+
+
+_VIEW_TOKEN = re.compile(r"%(0\d+)?d|#+")
+
+
+def _split_view(path: str, token: str) -> tuple[str, int, str]:
+    """``(text before, padding width, text after)`` of the one occurrence of ``token`` in ``path``
+    (ValueError if the token is malformed, absent or there twice)."""
+    form = _VIEW_TOKEN.fullmatch(token)
+    if form is None:
+        raise ValueError(f"view_token {token!r} is not a number token; use %d, %02d or ##")
+    hits = [m for m in re.finditer(r"%%|%(0\d+)?d|#+", path) if m.group(0) == token]
+    if not hits:
+        raise ValueError(f"view_token {token!r} does not occur in path {path!r}")
+    if len(hits) > 1:
+        raise ValueError(f"view_token {token!r} occurs {len(hits)} times in path {path!r}; write the "
+                         "camera and frame tokens differently (#### and %04d are the same padding)")
+    width = len(token) if token.startswith("#") else int(form.group(1) or "0")
+    if token == "#":
+        width = 0
+    m = hits[0]
+    return path[:m.start()], width, path[m.end():]
+
+
+def fill_view(path: str, token: str, view: int) -> str:
+    """``path`` with the camera number ``view`` in place of ``token`` (the frame token stays).
+
+    >>> fill_view("rig/cam%02d/plate.%04d.exr", "%02d", 3)
+    'rig/cam03/plate.%04d.exr'
+    """
+    before, width, after = _split_view(path, token)
+    number = f"{int(view):0{width}d}" if width else str(int(view))
+    return f"{before}{number}{after}"
+
+
+def _pattern(params: ReadParams, sample: Sample) -> str:
+    """The one-token pattern for ``sample``: ``path`` itself, or with the camera filled in."""
+    if params.view_token is None:
+        return params.path
+    if sample.view.denominator != 1:
+        raise OpError(f"no file at fractional view {sample.view}: cameras exist only at integer views",
+                      file=params.path, field="view_token",
+                      fix="feed this read into an in-between (vector) operator with axis 'view' to "
+                          "get fractional views")
+    return fill_view(params.path, params.view_token, int(sample.view))
+
+
+def _piece_regex(text: str) -> str:
+    seq = sequence.parse(text)
+    if not seq.is_sequence:
+        return re.escape(seq.prefix)
+    return re.escape(seq.prefix) + r"-?\d+" + re.escape(seq.suffix)
+
+
+def _piece_glob(text: str) -> str:
+    seq = sequence.parse(text)
+    if not seq.is_sequence:
+        return glob.escape(seq.prefix)
+    return glob.escape(seq.prefix) + "*" + glob.escape(seq.suffix)
+
+
+def discover_views(params: ReadParams) -> list[int]:
+    """Sorted camera numbers with at least one frame on disk (``view_token`` set); only numbers
+    written as the token writes them count (``%02d`` takes ``03``, not ``3``)."""
+    token = params.view_token or ""
+    before, width, after = _split_view(params.path, token)
+    rx = re.compile(_piece_regex(before) + r"(-?\d+)" + _piece_regex(after) + r"\Z")
+    found: set[int] = set()
+    for name in glob.iglob(_piece_glob(before) + "*" + _piece_glob(after)):
+        m = rx.match(name)
+        if m is None:
+            continue
+        view = int(m.group(1))
+        text = f"{view:0{width}d}" if width else str(view)
+        if text == m.group(1) and os.path.isfile(name):
+            found.add(view)
+    return sorted(found)
+
+
+def _camera_range(params: ReadParams) -> FrameRange:
+    views = discover_views(params)
+    if not views:
+        raise OpError(f"no files match {params.path!r} for any camera", file=params.path, field="path",
+                      fix=f"check the folders and the tokens (camera: {params.view_token!r}, frame: the "
+                          "other one)")
+    gaps = sequence.missing_frames(views)
+    if gaps:
+        raise OpError(f"cameras {sequence.compact_ranges(gaps)} are missing from the rig (found "
+                      f"{sequence.compact_ranges(views)})", file=params.path, field="path",
+                      fix="render or copy the missing cameras, or number the cameras without gaps")
+    return FrameRange(views[0], views[-1])
+
 
 def _file_for(params: ReadParams, sample: Sample) -> str:
     """The file to read at ``sample``; OpError for a fractional number on a sequence."""
-    pattern = sequence.parse(params.path)
+    pattern = sequence.parse(_pattern(params, sample))
     if not pattern.is_sequence:
         return pattern.prefix
     number = axis_number(params.axis, sample)
@@ -81,6 +210,20 @@ def _file_for(params: ReadParams, sample: Sample) -> str:
 
 
 def _frames(params: ReadParams, input_frames: Mapping[str, FrameRange | None]) -> FrameRange | None:
+    if params.view_token is not None:
+        cams = _camera_range(params)
+        ranges = {}
+        for v in cams:
+            pat = fill_view(params.path, params.view_token, v)
+            ranges[v] = sequence.contiguous_range(pat, field="path")
+        first = ranges[cams.first]
+        for v, rng in ranges.items():
+            if rng != first:
+                raise OpError(f"camera {v} holds frames {rng[0]}-{rng[1]} but camera {cams.first} "
+                              f"holds {first[0]}-{first[1]}", file=fill_view(params.path, params.view_token, v),
+                              field="path", fix="give every camera the same frames (trim the longer "
+                                                "sequences or render the missing frames)")
+        return FrameRange(*first)
     pattern = sequence.parse(params.path)
     if not pattern.is_sequence:
         if not os.path.isfile(pattern.prefix):
@@ -95,7 +238,10 @@ def _frames(params: ReadParams, input_frames: Mapping[str, FrameRange | None]) -
 
 
 def _views(params: ReadParams, input_views: Mapping[str, FrameRange | None]) -> FrameRange | None:
-    """The camera numbers found on disk when the files number views (``axis='view'``)."""
+    """The camera numbers found on disk when the files number views (``axis='view'``, or a
+    ``view_token``)."""
+    if params.view_token is not None:
+        return _camera_range(params)
     if params.axis != "view" or not sequence.is_sequence(params.path):
         return None
     first, last = sequence.contiguous_range(params.path, field="path")
@@ -103,7 +249,10 @@ def _views(params: ReadParams, input_views: Mapping[str, FrameRange | None]) -> 
 
 
 def _canonical_sample(params: ReadParams, sample: Sample) -> Sample:
-    """A still is the same file at every sample; a sequence depends only on its own axis."""
+    """A still is the same file at every sample; a sequence depends only on its own axis (on both
+    with a ``view_token``)."""
+    if params.view_token is not None:
+        return sample
     if not sequence.is_sequence(params.path):
         return Sample(0, 0)
     return Sample(sample.frame, 0) if params.axis == "frame" else Sample(0, sample.view)
@@ -113,7 +262,8 @@ def _identity(params: ReadParams, sample: Sample) -> str:
     try:
         path = resolved(_file_for(params, sample))
     except OpError:
-        return f"{params.path}|{params.axis}={axis_number(params.axis, sample)}|no file (fractional)"
+        return (f"{params.path}|{params.axis}={axis_number(params.axis, sample)}|view={sample.view}"
+                "|no file (fractional)")
     try:
         st = os.stat(path)
     except OSError:
@@ -128,14 +278,16 @@ def _sources(params: ReadParams, sample: Sample) -> list[str]:
         return []
 
 
-def _missing_file_error(params: ReadParams, path: str, number: Any) -> OpError:
-    found = sequence.discover(params.path)
+def _missing_file_error(params: ReadParams, path: str, number: Any, sample: Sample) -> OpError:
+    found = sequence.discover(_pattern(params, sample))
     if found:
         fix = (f"{params.axis}s on disk: {sequence.compact_ranges(found)}; ask only for those, "
                "or render/copy the missing file")
     else:
         fix = f"no file matches {params.path!r}; check the folder and the frame token"
-    what = f"{params.axis} {number}" if sequence.is_sequence(params.path) else "still file"
+    what = f"{params.axis} {number}" if sequence.is_sequence(_pattern(params, sample)) else "still file"
+    if params.view_token is not None:
+        what += f" of camera {sample.view}"
     return OpError(f"file not found for {what}", file=path, field="path", fix=fix)
 
 
@@ -170,7 +322,7 @@ def read_file(path: str, *, transfer: str = "auto") -> Image:
 def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     path = _file_for(params, ctx.sample)
     if not os.path.isfile(path):
-        raise _missing_file_error(params, path, axis_number(params.axis, ctx.sample))
+        raise _missing_file_error(params, path, axis_number(params.axis, ctx.sample), ctx.sample)
     image = read_file(path, transfer=params.transfer)
 
     if params.channels is not None:
@@ -199,7 +351,9 @@ def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
     meta["source.path"] = os.path.abspath(path)
     meta["source.axis"] = params.axis
     meta["source.frame"] = (int(axis_number(params.axis, ctx.sample))
-                            if sequence.is_sequence(params.path) else None)
+                            if sequence.is_sequence(_pattern(params, ctx.sample)) else None)
+    if params.view_token is not None:
+        meta["source.view"] = int(ctx.sample.view)
     return image.replace(meta=meta)
 
 

@@ -229,3 +229,73 @@ def test_a_still_is_read_once_for_every_frame(tmp_path):
     images = [ev.evaluate("s", Sample(f, v)) for f in (1, 2, 7) for v in (0, 3)]
     assert ev.calls["s"] == 1
     assert all(img is images[0] for img in images)
+
+
+# -- view_token: a rig whose cameras each recorded a sequence -------------------------------------------
+def _rig(tmp_path, views, frames, token_dir="cam{:02d}"):
+    """Tiny EXRs whose R value is 100 * camera + frame (known answer)."""
+    for v in views:
+        folder = tmp_path / token_dir.format(v)
+        folder.mkdir(parents=True, exist_ok=True)
+        for f in frames:
+            write_raw_exr(folder / f"plate.{f:04d}.exr",
+                          {"R": np.full((4, 6), 100 * v + f), "G": np.zeros((4, 6)), "B": np.zeros((4, 6))})
+    return str(tmp_path / "cam%02d" / "plate.%04d.exr")
+
+
+def test_view_token_fills_the_camera_and_the_frame(tmp_path):
+    path = _rig(tmp_path, (1, 2, 3), (1001, 1002))
+    p = ReadParams(path=path, view_token="%02d")
+    assert READ.views(p, {}) == FrameRange(1, 3)
+    assert READ.frames(p, {}) == FrameRange(1001, 1002)
+    for v, f in ((1, 1001), (3, 1002), (2, 1002)):
+        img = READ.compute(p, {}, op_context(Sample(f, v)))
+        assert float(img.channel("R")[0, 0]) == 100 * v + f
+        assert img.meta["source.view"] == v and img.meta["source.frame"] == f
+    # the result depends on both numbers, so the cache keeps both
+    assert READ.canonical_sample(p, Sample(1001, 2)) == Sample(1001, 2)
+    assert READ.sources(p, Sample(1002, 3)) == [os.path.realpath(tmp_path / "cam03" / "plate.1002.exr")]
+
+
+def test_view_token_hash_form_and_padding_is_exact(tmp_path):
+    path = _rig(tmp_path, (1, 2), (5,))
+    (tmp_path / "cam7").mkdir()                        # '7' is not written as %02d writes it: ignored
+    write_raw_exr(tmp_path / "cam7" / "plate.0005.exr", {"R": np.zeros((4, 6))})
+    p = ReadParams(path=str(tmp_path / "cam##" / "plate.%04d.exr"), view_token="##")
+    assert READ.views(p, {}) == FrameRange(1, 2)
+    assert float(READ.compute(p, {}, op_context(Sample(5, 2))).channel("R")[0, 0]) == 205
+
+
+def test_view_token_cameras_must_share_frames_and_have_no_gaps(tmp_path):
+    path = _rig(tmp_path, (1, 2), (1, 2, 3))
+    _rig(tmp_path, (3,), (1, 2))
+    with pytest.raises(OpError) as err:
+        READ.frames(ReadParams(path=path, view_token="%02d"), {})
+    assert "camera 3 holds frames 1-2" in str(err.value) and "cam03" in err.value.file
+    gap = _rig(tmp_path / "gap", (1, 3), (1,))
+    with pytest.raises(OpError, match="cameras 2 are missing"):
+        READ.views(ReadParams(path=gap, view_token="%02d"), {})
+
+
+def test_view_token_missing_and_fractional(tmp_path):
+    path = _rig(tmp_path, (1, 2), (1, 2))
+    p = ReadParams(path=path, view_token="%02d")
+    with pytest.raises(OpError) as err:
+        READ.compute(p, {}, op_context(Sample(3, 2)))
+    assert "frame 3 of camera 2" in str(err.value) and err.value.fix
+    with pytest.raises(OpError) as err:
+        READ.compute(p, {}, op_context(Sample(1, Fraction(3, 2))))
+    assert err.value.field == "view_token" and "fractional view" in str(err.value)
+
+
+@pytest.mark.parametrize("kw, words", [
+    (dict(path="r/c%02d/p.%04d.exr"), "name it in view_token"),
+    (dict(path="r/c%04d/p.%04d.exr", view_token="%04d"), "occurs 2 times"),
+    (dict(path="r/c%02d/p.%04d.exr", view_token="%03d"), "does not occur"),
+    (dict(path="r/c%02d/p.exr", view_token="%02d"), "no frame token besides"),
+    (dict(path="r/c%02d/p.%04d.exr", view_token="%02d", axis="view"), "set axis to 'frame'"),
+    (dict(path="r/c%02d/p.%04d.exr", view_token="cam"), "not a number token"),
+])
+def test_view_token_bad_params(kw, words):
+    with pytest.raises(pydantic.ValidationError, match=words):
+        ReadParams(**kw)
