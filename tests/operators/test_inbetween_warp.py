@@ -264,3 +264,31 @@ def test_vectors_of_another_size():
 def test_declaration():
     assert WARP.name == "warp" and [p.name for p in WARP.inputs] == ["image", "vectors"]
     assert WARP.edge_samples and WARP.needs is warp_needs
+
+
+# -- quadratic motion (Xu et al., "Quadratic video interpolation", NeurIPS 2019) -------------------
+@pytest.mark.parametrize("tau", [0.25, 0.5, 0.8, 1.0])
+def test_trajectory_follows_constant_acceleration_exactly(tau):
+    # Known answer: p(s) = v0 s + a s^2 / 2 through the samples s = -1, 0, 1 (invented values).
+    from operators.inbetween.warp import trajectory
+
+    rng = np.random.default_rng(3)
+    v0, acc = rng.normal(0, 4, (5, 6, 2)), rng.normal(0, 2, (5, 6, 2))
+    to_next, to_outer = v0 + acc / 2, -v0 + acc / 2
+    got = tau * trajectory(to_next.astype(np.float32), to_outer.astype(np.float32), tau)
+    np.testing.assert_allclose(got, v0 * tau + acc * tau ** 2 / 2, atol=1e-4)
+    # constant velocity (o = -v): the straight line, whatever tau
+    np.testing.assert_allclose(trajectory(to_next.astype(np.float32), -to_next.astype(np.float32), tau),
+                               to_next, atol=1e-5)
+
+
+def test_quadratic_motion_falls_back_to_linear_without_outer_vectors():
+    # The outer directions of exact_vectors() are zero (a two-frame sequence): same as 'linear'.
+    i0, i1 = render(0), render(1)
+    s = Sample(Fraction(2001, 2))
+    outs = {}
+    for motion in ("quadratic", "linear"):
+        outs[motion] = run_op(WARP, WarpParams(side="previous", motion=motion),
+                              {"image": i0, "vectors": exact_vectors()}, sample=s)
+    assert outs["quadratic"].meta["inbetween.motion"] == "linear"
+    np.testing.assert_array_equal(outs["quadratic"].pixels, outs["linear"].pixels)
