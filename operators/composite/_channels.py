@@ -89,3 +89,17 @@ def data_names(images: Sequence[Image | None]) -> tuple[str, ...]:
             if not is_colour(c) and c not in seen:
                 seen[c] = None
     return tuple(seen)
+
+
+def matte_values(matte: Image, port: str = "matte") -> np.ndarray:
+    """The (H, W) matte plane of ``matte``: its 'A' channel, else its only channel (OpError otherwise)."""
+    if ALPHA in matte.channels:
+        return matte.channel(ALPHA)
+    if len(matte.channels) == 1:
+        return matte.pixels[:, :, 0]
+    raise OpError(
+        f"the {port} input has channels {', '.join(matte.channels)}: no 'A' channel and more than one "
+        "channel, so it is unclear which one is the matte",
+        field=port,
+        fix=f"connect an image with an 'A' channel or with a single channel as '{port}'",
+    )

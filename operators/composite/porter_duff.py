@@ -40,7 +40,7 @@ from graphcore.errors import OpError
 from graphcore.image import ALPHA, Image
 from graphcore.registry.operator import OpContext, Operator, Port
 
-from ._channels import colour_union, data_names, plane, require_same_size
+from ._channels import colour_union, data_names, matte_values, plane, require_same_size
 
 __all__ = ["MATTE_COMPOSITE", "MatteCompositeParams", "matte_composite", "FRACTIONS",
            "UNPREMULTIPLY_EPSILON"]
@@ -92,17 +92,7 @@ class MatteCompositeParams(BaseModel):
 
 def _matte_plane(matte: Image, ctx: OpContext) -> np.ndarray:
     """The (H, W) matte values from ``matte``: its 'A', else its only channel; clipped to 0..1."""
-    if ALPHA in matte.channels:
-        values = matte.channel(ALPHA)
-    elif len(matte.channels) == 1:
-        values = matte.pixels[:, :, 0]
-    else:
-        raise OpError(
-            f"the matte input has channels {', '.join(matte.channels)}: no 'A' channel and more "
-            "than one channel, so it is unclear which one is the matte",
-            field="matte",
-            fix="connect an image with an 'A' channel or with a single channel as 'matte'",
-        )
+    values = matte_values(matte)
     lo, hi = float(np.min(values)), float(np.max(values))
     if lo < 0.0 or hi > 1.0:
         ctx.warn(f"matte values span {lo:.6g}..{hi:.6g}, outside 0..1; clipped to 0..1")

@@ -44,6 +44,7 @@ from graphcore.image import ALPHA, Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.vectors import _filters as F
+from operators.composite._channels import matte_values
 from operators.vectors._encode import perceptual
 from operators.vectors.flow import neighbour
 from operators.vectors.channels import BWD, FWD, SMOOTHED, VECTORS
@@ -656,17 +657,7 @@ def _guide(image: Image) -> np.ndarray:
 
 
 def _matte(matte: Image) -> np.ndarray:
-    if ALPHA in matte.channels:
-        values = matte.channel(ALPHA)
-    elif len(matte.channels) == 1:
-        values = matte.pixels[:, :, 0]
-    else:
-        raise OpError(
-            f"the matte has channels {', '.join(matte.channels)}: no 'A' channel and more than one "
-            "channel, so it is unclear which one is the matte",
-            field="matte",
-            fix="connect an image with an 'A' channel or with a single channel as 'matte'")
-    return np.nan_to_num(np.asarray(values, np.float32), nan=0.0)
+    return np.nan_to_num(np.asarray(matte_values(matte), np.float32), nan=0.0)
 
 
 def vector_smooth(params: VectorSmoothParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
