@@ -27,11 +27,12 @@ def checkerboard(h: int, w: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def coarse_labels(f1, f2, xs, ys, wx, wy, *, reach: int, tau: float, tau_out: float, patch: int, lam: float,
-                  eps: float, sweeps: int) -> tuple[np.ndarray, np.ndarray]:
+                  eps: float, sweeps: int, support=None) -> tuple[np.ndarray, np.ndarray]:
     """Exhaustive MAP labelling over integer vectors within ``reach`` at the coarsest level.
 
     Every integer vector in the ``(2 reach + 1)**2`` square is scored by the patch likelihood
     (a cost volume); the winner-takes-all labels start ICM sweeps over the full label set.
+    ``support`` (a ``_support.Support``) replaces the box patch by adaptive support weights.
 
     Returns
     -------
@@ -40,7 +41,7 @@ def coarse_labels(f1, f2, xs, ys, wx, wy, *, reach: int, tau: float, tau_out: fl
     h, w = xs.shape
     offs = [(dx, dy) for dy in range(-reach, reach + 1) for dx in range(-reach, reach + 1)]
     zeros = np.zeros((h, w), np.float32)
-    vol = np.stack([patch_cost(f1, f2, xs, ys, zeros + dx, zeros + dy, tau, tau_out, patch)
+    vol = np.stack([patch_cost(f1, f2, xs, ys, zeros + dx, zeros + dy, tau, tau_out, patch, support)
                     for dx, dy in offs])
     # Tiny preference for short vectors so flat regions resolve to zero, not to a tie.
     lens = np.array([np.hypot(dx, dy) for dx, dy in offs], np.float32) * np.float32(1e-4)
@@ -71,7 +72,8 @@ def _block_noise(rng: np.random.Generator, h: int, w: int, radius: float, block:
 def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, tau: float,
         tau_out: float, patch: int, lam: float, eps: float, jumps: tuple[int, ...], radius: float,
         block: int, extra: list[tuple[np.ndarray, np.ndarray]] = (), data_weight: np.ndarray | None = None,
-        bias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> tuple[np.ndarray, np.ndarray]:
+        bias: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+        support=None) -> tuple[np.ndarray, np.ndarray]:
     """Checkerboard ICM over candidate vectors at one level.
 
     Candidates at each sweep: the pixel's current vector; its neighbours' vectors at the
@@ -83,7 +85,8 @@ def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, 
     ``data_weight`` (H, W), if given, multiplies the likelihood per pixel (0 at occluded pixels:
     the prior alone decides there); ``bias = (ref_u, ref_v, beta)`` adds
     ``beta * (|c_u - ref_u| + |c_v - ref_v|)`` to every candidate's energy (a preference for
-    the reference motion where ``beta`` > 0).
+    the reference motion where ``beta`` > 0). ``support`` (a ``_support.Support``), if given,
+    replaces the box patch of the likelihood by adaptive support weights.
 
     Returns
     -------
@@ -105,7 +108,8 @@ def icm(f1, f2, xs, ys, wx, wy, u, v, *, rng: np.random.Generator, sweeps: int, 
             cands.append((u + nu, v + nv))
             r /= 2
         cands.extend(extra)
-        datas = [patch_cost(f1, f2, xs, ys, cu, cv, tau, tau_out, patch) for cu, cv in cands]
+        datas = [patch_cost(f1, f2, xs, ys, cu, cv, tau, tau_out, patch, support)
+                 for cu, cv in cands]
         if data_weight is not None:
             datas = [d * data_weight for d in datas]
         if bias is not None:

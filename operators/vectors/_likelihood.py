@@ -43,13 +43,17 @@ def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarra
 
 def patch_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarray,
                cu: np.ndarray, cv: np.ndarray, tau: float, tau_out: float,
-               patch: int) -> np.ndarray:
+               patch: int, support=None) -> np.ndarray:
     """``pointwise_cost`` averaged over a ``patch`` x ``patch`` box around each pixel.
 
     Exact for a candidate field that is constant over the patch; for a smoothly varying one
-    (the propagation candidates) it is the patch cost of the local vectors.
+    (the propagation candidates) it is the patch cost of the local vectors. With ``support``
+    (a ``_support.Support`` of the first image) the average is weighted by the adaptive
+    support weights instead of the box, and ``patch`` is ignored.
     """
     c = pointwise_cost(f1, f2, xs, ys, cu, cv, tau, tau_out)
+    if support is not None:
+        return support.aggregate(c)
     if patch > 1:
         c = cv2.boxFilter(c, -1, (patch, patch), normalize=True, borderType=cv2.BORDER_REFLECT)
     return c

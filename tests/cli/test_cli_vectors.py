@@ -46,7 +46,9 @@ def test_vectors_on_motorcycle_beat_dis(motorcycle):
     dis = cv2.DISOpticalFlow_create(cv2.DISOPTICAL_FLOW_PRESET_MEDIUM).calc(grey[0], grey[1], None)
     base = score(dis[..., 0], dis[..., 1])
     assert ours[0] < base[0] and ours[1] < base[1], (ours, base)
-    assert ours[0] < 1.8 and ours[1] < 0.107  # measured 1.759 px / 10.38 % (issue 3 targets 1.5 / 9 %: not yet)
+    # measured 1.724 px / 10.14 % (1.759 / 10.38 % before the adaptive support weights);
+    # issue 3 targets 1.5 px / 9 %: not yet
+    assert ours[0] < 1.77 and ours[1] < 0.105
     # the backward vectors are the same disparity seen from the right image: mostly positive x
     assert np.median(ch["bwd.x"][valid]) > 0
     conf = ch["conf"]
