@@ -194,26 +194,39 @@ def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpCon
     t = np.float32(frac)
     va = np.clip(a.pixels[:, :, vi], 0.0, 1.0)
     vb = np.clip(pb[:, :, vi], 0.0, 1.0)
-    pa, pb = a.pixels[:, :, keep], pb[:, :, keep]
+    # the colour planes as views where they are adjacent (no copies of the whole image)
+    if keep and keep == list(range(keep[0], keep[0] + len(keep))):
+        pa, pb = a.pixels[:, :, keep[0]:keep[-1] + 1], pb[:, :, keep[0]:keep[-1] + 1]
+    else:
+        pa, pb = a.pixels[:, :, keep], pb[:, :, keep]
     wa, wb = (np.float32(1) - t) * va, t * vb
     total = wa + wb
     safe = np.where(total > 0, total, np.float32(1))
-    seen = (wa[:, :, None] * pa + wb[:, :, None] * pb) / safe[:, :, None]
+    # seen = (wa a + wb b) / total; fall = (1 - t) a + t b, or the nearest side; in place
+    seen = np.multiply(wa[:, :, None], pa)
+    part = np.multiply(wb[:, :, None], pb)
+    seen += part
+    seen /= safe[:, :, None]
     if params.fallback == "dissolve":
-        fall = (np.float32(1) - t) * pa + t * pb
+        fall = np.multiply(np.float32(1) - t, pa)
+        fall += np.multiply(t, pb, out=part)
     else:
-        fall = pa if frac <= Fraction(1, 2) else pb
+        fall = part
+        np.copyto(fall, pa if frac <= Fraction(1, 2) else pb)
     best = np.maximum(va, vb)
     s = np.clip(best / np.float32(params.threshold), 0.0, 1.0)
     s[total <= 0] = 0.0
-    out = s[:, :, None] * seen + (np.float32(1) - s[:, :, None]) * fall
+    seen *= s[:, :, None]                     # out = s seen + (1 - s) fall
+    fall *= (np.float32(1) - s)[:, :, None]
+    seen += fall
+    out = seen
     share = float(np.mean(best < params.threshold))
     meta = dict(a.meta)
     meta["inbetween.fallback_share"] = share
     if share > 0:
         ctx.warn(f"{share * 100:.2f} % of pixels at {ctx.sample} fell back to {params.fallback} "
                  f"(both sides' visibility below {params.threshold:g})")
-    return Image(out.astype(np.float32), tuple(a.channels[i] for i in keep), meta)
+    return Image(out, tuple(a.channels[i] for i in keep), meta)
 
 
 def link_problems(params: BlendParams, connected: frozenset[str]) -> list[OpError]:

@@ -45,10 +45,13 @@ def front_ness(vectors: np.ndarray, visible: np.ndarray, rule: Literal["dominant
     -------
     ndarray, shape (H, W), float32
     """
-    v = np.asarray(vectors, np.float64)
+    v = np.asarray(vectors)
+    if v.dtype != np.float32:
+        v = v.astype(np.float64)
     h, w = v.shape[:2]
+    # float32 vectors meet float64 positions below: numpy promotes them exactly.
     if rule == "slower":
-        dist = np.hypot(v[:, :, 0], v[:, :, 1])
+        dist = np.hypot(v[:, :, 0].astype(np.float64), v[:, :, 1].astype(np.float64))
     elif rule == "dominant":
         from operators.vectors._filters import robust_affine
 
@@ -58,11 +61,12 @@ def front_ness(vectors: np.ndarray, visible: np.ndarray, rule: Literal["dominant
         step = max(1, int(np.ceil(np.sqrt(region.size / samples))))
         ys, xs = np.nonzero(region[::step, ::step])
         ys, xs = ys * step, xs * step
-        model = robust_affine(xs.astype(np.float64), ys.astype(np.float64), v[ys, xs])
-        gy, gx = np.mgrid[0:h, 0:w].astype(np.float64)
-        ref_x = model[0, 0] * gx + model[0, 1] * gy + model[0, 2]
-        ref_y = model[1, 0] * gx + model[1, 1] * gy + model[1, 2]
-        dist = np.hypot(v[:, :, 0] - ref_x, v[:, :, 1] - ref_y)
+        model = robust_affine(xs.astype(np.float64), ys.astype(np.float64), v[ys, xs].astype(np.float64))
+        gx = np.arange(w, dtype=np.float64)[None, :]
+        gy = np.arange(h, dtype=np.float64)[:, None]
+        dx = v[:, :, 0] - (model[0, 0] * gx + model[0, 1] * gy + model[0, 2])
+        dy = v[:, :, 1] - (model[1, 0] * gx + model[1, 1] * gy + model[1, 2])
+        dist = np.hypot(dx, dy, out=dx)
     else:
         raise ValueError(f"unknown rule {rule!r}; use 'dominant' or 'slower'")
     scale = max(float(np.percentile(dist, 99)), MIN_SCALE)

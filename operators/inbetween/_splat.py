@@ -34,6 +34,9 @@ HOLE_COVERAGE = 0.02
 #: plain translation lands exactly 1 on every pixel; 0.5 tolerates a 2x local stretch (zoom-in,
 #: surfaces turning toward the camera) without calling the stretched area partly hidden.
 FULL_COVERAGE = 0.5
+#: Source rows splatted per batch (bounds the temporaries; any value gives the same sums up to
+#: float64 rounding).
+_BAND = 64
 
 
 @dataclass(frozen=True)
@@ -82,42 +85,52 @@ def splat_vectors(vectors: np.ndarray, tau: float, z: np.ndarray, reliability: n
     """
     v = np.asarray(vectors, dtype=np.float32)
     h, w = v.shape[:2]
-    n = h * w
-    cols = np.arange(w, dtype=np.float64)[None, :]
-    rows = np.arange(h, dtype=np.float64)[:, None]
-    xs = (cols + tau * v[:, :, 0]).ravel()
-    ys = (rows + tau * v[:, :, 1]).ravel()
-    x0, y0 = np.floor(xs), np.floor(ys)
-    fx, fy = xs - x0, ys - y0
-    x0, y0 = x0.astype(np.int64), y0.astype(np.int64)
     zz = np.maximum(np.asarray(z, np.float64), 0.0)
-    imp = np.exp(float(sharpness) * (zz - zz.max())).ravel()   # shifted: same ratios, no overflow
-    vx, vy = v[:, :, 0].ravel().astype(np.float64), v[:, :, 1].ravel().astype(np.float64)
-    rel = np.asarray(reliability, np.float64).ravel()
-
-    area = np.zeros(n)
-    wsum = np.zeros(n)
-    sx = np.zeros(n)
-    sy = np.zeros(n)
-    sr = np.zeros(n)
-    # Phase 1: bilinear weights to the four nearest pixel centres, accumulated per target pixel.
-    for dx, dy in ((0, 0), (1, 0), (0, 1), (1, 1)):
-        bil = (fx if dx else 1.0 - fx) * (fy if dy else 1.0 - fy)
-        tx, ty = x0 + dx, y0 + dy
-        inside = (tx >= 0) & (tx < w) & (ty >= 0) & (ty < h) & (bil > 0)
-        idx = (ty * w + tx)[inside]
-        b = bil[inside]
-        wt = b * imp[inside]
-        area += np.bincount(idx, b, minlength=n)
-        wsum += np.bincount(idx, wt, minlength=n)
-        sx += np.bincount(idx, wt * vx[inside], minlength=n)
-        sy += np.bincount(idx, wt * vy[inside], minlength=n)
-        sr += np.bincount(idx, wt * rel[inside], minlength=n)
-    # Phase 2: normalise (the softmax); holes keep zeros.
+    top = zz.max() if zz.size else 0.0
+    rel = np.asarray(reliability, np.float64)
+    # Targets go to a grid padded by `pad` pixels: a corner outside the frame lands in the
+    # padding (dropped at the end) instead of being masked out; positions further out are
+    # clamped into the padding, where both of their corners stay outside. Source rows are
+    # splatted in bands, each band's bincount spanning only the targets it reaches, so the
+    # temporaries stay small (cache-sized) on typical fields.
+    pad = 2
+    gw, gh = w + 2 * pad, h + 2 * pad
+    acc = np.zeros((5, gw * gh))
+    cols = np.arange(w, dtype=np.float64)[None, :]
+    for r0 in range(0, h, _BAND):
+        r1 = min(h, r0 + _BAND)
+        vb = v[r0:r1]
+        xs = cols + tau * vb[:, :, 0]
+        ys = np.arange(r0, r1, dtype=np.float64)[:, None] + tau * vb[:, :, 1]
+        x0, y0 = np.floor(xs), np.floor(ys)
+        fx, fy = (xs - x0).ravel(), (ys - y0).ravel()
+        base = (np.clip(y0, -pad, h).astype(np.intp).ravel() + pad) * gw
+        base += np.clip(x0, -pad, w).astype(np.intp).ravel() + pad
+        # importance exp(sharpness z), shifted by the frame's largest z: same ratios, no overflow
+        imp = np.exp(float(sharpness) * (zz[r0:r1] - top)).ravel()
+        values = (imp, imp * vb[:, :, 0].ravel(), imp * vb[:, :, 1].ravel(), imp * rel[r0:r1].ravel())
+        gx, gy = 1.0 - fx, 1.0 - fy
+        lo = int(base.min())
+        span = int(base.max()) - lo + gw + 2
+        local = base - lo
+        # Phase 1: bilinear weights to the four nearest pixel centres, accumulated per target:
+        # the area (bilinear weights alone), the importance, and the importance-weighted vector
+        # and reliability.
+        for offset, (a, b) in ((0, (gx, gy)), (1, (fx, gy)), (gw, (gx, fy)), (gw + 1, (fx, fy))):
+            bil = a * b
+            idx = local + offset if offset else local
+            acc[0, lo:lo + span] += np.bincount(idx, bil, minlength=span)
+            for k, val in enumerate(values, start=1):
+                acc[k, lo:lo + span] += np.bincount(idx, bil * val, minlength=span)
+    area, wsum, sx, sy, sr = acc.reshape(5, gh, gw)[:, pad:pad + h, pad:pad + w]
+    # Phase 2: normalise (the softmax); holes keep zeros. In place on the accumulators.
     holes = area < HOLE_COVERAGE
-    safe = np.where(holes | (wsum <= 0), 1.0, wsum)
-    out = np.stack([sx / safe, sy / safe], axis=1)
+    wsum[holes | (wsum <= 0)] = 1.0
+    out = np.empty((h, w, 2), np.float32)
+    np.divide(sx, wsum, out=out[:, :, 0], casting="unsafe")
+    np.divide(sy, wsum, out=out[:, :, 1], casting="unsafe")
     out[holes] = 0.0
-    r = np.where(holes, 0.0, sr / safe)
-    return Splatted(out.reshape(h, w, 2).astype(np.float32), area.reshape(h, w).astype(np.float32),
-                    np.clip(r, 0.0, 1.0).reshape(h, w).astype(np.float32), holes.reshape(h, w))
+    sr /= wsum
+    sr[holes] = 0.0
+    np.clip(sr, 0.0, 1.0, out=sr)
+    return Splatted(out, area.astype(np.float32), sr.astype(np.float32), holes)

@@ -178,7 +178,7 @@ def _outer(img: Image, previous: bool) -> np.ndarray | None:
     names, conf_name = (BWD, BWD_CONF) if previous else (FWD, FWD_CONF)
     if not all(c in img.channels for c in names):
         return None
-    if img.has(conf_name) and not np.any(np.nan_to_num(img.channel(conf_name)) > 0):
+    if img.has(conf_name) and not np.any(img.channel(conf_name) > 0):   # NaN counts as 0
         return None
     plane = _plane(img, names)
     return plane if np.any(plane) else None
@@ -224,7 +224,13 @@ def link_problems(params: WarpParams, connected: frozenset[str]) -> list[OpError
 
 
 def _plane(img: Image, names: tuple[str, ...]) -> np.ndarray:
-    return np.stack([np.nan_to_num(img.channel(c), nan=0.0, posinf=0.0, neginf=0.0) for c in names], axis=2)
+    """(H, W, len(names)) float32 copy of ``img``'s channels ``names``, non-finite values as 0."""
+    out = np.stack([img.channel(c) for c in names], axis=2)
+    with np.errstate(invalid="ignore", over="ignore"):
+        finite = np.isfinite(np.sum(out, dtype=np.float64))   # a sum is finite iff every value is
+    if not finite:
+        out[~np.isfinite(out)] = 0.0
+    return out
 
 
 def _require(img: Image | None, names: tuple[str, ...], where: str) -> Image:
@@ -245,9 +251,12 @@ def _confidence(own: Image, other: Image, vec: np.ndarray, fwd_side: bool) -> tu
     else from the forward-backward check against the other sample's opposite vectors."""
     conf_name, occ_name = (FWD_CONF, FWD_OCC) if fwd_side else (BWD_CONF, BWD_OCC)
     if own.has(conf_name):
-        conf = np.clip(np.nan_to_num(own.channel(conf_name), nan=0.0), 0.0, 1.0)
+        conf = np.clip(own.channel(conf_name), np.float32(0.0), np.float32(1.0))   # +-inf to 1, 0
+        nan = np.isnan(conf)
+        if nan.any():
+            conf[nan] = 0.0
         occ = (own.channel(occ_name) > 0.5) if own.has(occ_name) else (conf < 0.5)
-        return conf.astype(np.float32), occ
+        return conf, occ
     back = _plane(other, BWD if fwd_side else FWD)
     conf, occ = fb_consistency(vec, back)
     return conf, occ > 0.5
@@ -341,7 +350,8 @@ def warp(params: WarpParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image
 
     keep = [i for i, c in enumerate(image.channels) if c != VIS]
     channels = tuple(image.channels[i] for i in keep) + (VIS,)
-    out = np.concatenate([warped[:, :, keep], vis[:, :, None].astype(np.float32)], axis=2)
+    kept = warped if len(keep) == warped.shape[2] else warped[:, :, keep]
+    out = np.concatenate([kept, vis[:, :, None].astype(np.float32)], axis=2)
     meta = dict(image.meta)
     meta["inbetween.side"] = params.side
     meta["inbetween.holes"] = float(sp.holes.mean())

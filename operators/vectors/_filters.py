@@ -12,18 +12,21 @@ import cv2
 import numpy as np
 
 __all__ = ["box_mean", "window_range", "window_offsets", "sortable_keys", "weighted_median_rows",
-           "nearest_valid", "robust_affine", "guide_planes", "pad_flat", "weighted_guided_filter"]
+           "nearest_valid", "nearest_valid_at", "robust_affine", "guide_planes", "weighted_guided_filter"]
 
 
 # -- box filters ---------------------------------------------------------------------------------
-def box_mean(a: np.ndarray, radius: int) -> np.ndarray:
+def box_mean(a: np.ndarray, radius: int, out: np.ndarray | None = None) -> np.ndarray:
     """Mean over the (2r+1)^2 window, counting pixels outside the frame as 0.
 
     Ratios of two such means (a weighted sum over a weight sum) are exact window statistics at
-    the border too, which is how every caller uses them.
+    the border too, which is how every caller uses them. ``out`` (same shape and dtype, may be
+    ``a`` itself): where to write the result.
     """
     k = 2 * radius + 1
-    return cv2.boxFilter(a, -1, (k, k), normalize=True, borderType=cv2.BORDER_CONSTANT)
+    if out is None:
+        return cv2.boxFilter(a, -1, (k, k), normalize=True, borderType=cv2.BORDER_CONSTANT)
+    return cv2.boxFilter(a, -1, (k, k), dst=out, normalize=True, borderType=cv2.BORDER_CONSTANT)
 
 
 def window_range(a: np.ndarray, radius: int) -> np.ndarray:
@@ -113,6 +116,51 @@ def nearest_valid(valid: np.ndarray, side: np.ndarray | None) -> tuple[np.ndarra
     return left, right
 
 
+def nearest_valid_at(invalid: np.ndarray, ys: np.ndarray, xs: np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Nearest valid pixel left, right, above and below invalid pixels (no matte sides).
+
+    The same answer as `nearest_valid` along rows and columns, found from the runs of invalid
+    pixels alone (work proportional to their number, not to the frame): the nearest valid
+    pixel to the left of an invalid one is the pixel just before its run.
+
+    Parameters
+    ----------
+    invalid : ndarray, shape (H, W), bool
+    ys, xs : ndarray, shape (N,), int
+        Pixels to answer for; each must be invalid.
+
+    Returns
+    -------
+    left, right : ndarray, shape (N,), intp
+        Column of the nearest valid pixel left (right) of each pixel on its row, -1 where none.
+    up, down : ndarray, shape (N,), intp
+        Row of the nearest valid pixel above (below) each pixel on its column, -1 where none.
+    """
+    h, w = invalid.shape
+    rows_major = np.flatnonzero(invalid)                      # sorted: runs along rows
+    qy, qx = np.divmod(rows_major, w)
+    cols_major = np.sort(qx * h + qy)                          # sorted: runs along columns
+    ys, xs = np.asarray(ys, np.intp), np.asarray(xs, np.intp)
+    left, right = _run_ends(rows_major, w, np.searchsorted(rows_major, ys * w + xs))
+    up, down = _run_ends(cols_major, h, np.searchsorted(cols_major, xs * h + ys))
+    return left, right, up, down
+
+
+def _run_ends(q: np.ndarray, length: int, at: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """For sorted flat indices ``q`` of lines of ``length``: the position on its line just before
+    and just after the run of consecutive entries holding ``q[at]`` (-1 past the line's ends)."""
+    n = len(q)
+    idx = np.arange(n)
+    starts = np.ones(n, bool)
+    starts[1:] = (q[1:] != q[:-1] + 1) | (q[1:] % length == 0)
+    ends = np.ones(n, bool)
+    ends[:-1] = starts[1:]
+    first = q[np.maximum.accumulate(np.where(starts, idx, 0))[at]] % length
+    last = q[np.minimum.accumulate(np.where(ends, idx, n - 1)[::-1])[::-1][at]] % length
+    return np.where(first > 0, first - 1, -1), np.where(last < length - 1, last + 1, -1)
+
+
 # -- dominant motion -----------------------------------------------------------------------------
 def robust_affine(xs: np.ndarray, ys: np.ndarray, vectors: np.ndarray, *,
                   iterations: int = 10) -> np.ndarray:
@@ -185,58 +233,90 @@ def guide_planes(guide: np.ndarray | Sequence[np.ndarray] | None,
     return [np.ascontiguousarray(g[:, :, c]) for c in range(g.shape[2])]
 
 
-def pad_flat(a: np.ndarray, radius: int) -> np.ndarray:
-    """``a`` (H, W) padded by ``radius`` zeros on every side, flattened (OpenCV, fast)."""
-    if a.dtype == bool:
-        a = a.view(np.uint8)
-    return cv2.copyMakeBorder(np.ascontiguousarray(a), radius, radius, radius, radius,
-                              cv2.BORDER_CONSTANT, value=0).ravel()
+def _sum(terms: list[np.ndarray]) -> np.ndarray | int:
+    """``sum(terms)`` (from 0, so -0.0 becomes 0.0 as there), accumulated in one new array."""
+    if not terms:
+        return 0
+    acc = np.add(terms[0], 0)
+    for t in terms[1:]:
+        acc += t
+    return acc
 
 
 def _coefficients(planes: list[np.ndarray], targets: list[np.ndarray], weight: np.ndarray, radius: int,
                   eps: float) -> tuple[list[tuple[list[np.ndarray], np.ndarray]], np.ndarray]:
-    """Window-averaged guided-filter coefficients ``(A_i, B)`` per target, and the support."""
+    """Window-averaged guided-filter coefficients ``(A_i, B)`` per target, and the support.
+    (Worked in place where it can: fewer fresh temporaries.)"""
     tiny = np.float32(1e-12)
     w_mean = box_mean(weight, radius)
-    inv_w = 1.0 / np.maximum(w_mean, tiny)
+    inv_w = np.maximum(w_mean, tiny)
+    np.divide(1.0, inv_w, out=inv_w)
 
     def wmean(a: np.ndarray) -> np.ndarray:
-        return box_mean(weight * a, radius) * inv_w
+        t = np.multiply(weight, a)
+        box_mean(t, radius, out=t)
+        t *= inv_w
+        return t
+
+    def centred(a: np.ndarray, m1: np.ndarray, m2: np.ndarray) -> np.ndarray:
+        t = wmean(a)
+        t -= m1 * m2
+        return t
 
     means = [wmean(p) for p in planes]
     n = len(planes)
     e = np.float32(eps)
     inv: list[list[np.ndarray]] = []
     if n == 1:
-        var = wmean(planes[0] * planes[0]) - means[0] * means[0] + e
-        inv = [[1.0 / var]]
+        var = centred(planes[0] * planes[0], means[0], means[0])
+        var += e
+        inv = [[np.divide(1.0, var, out=var)]]
     elif n == 3:
         cov = {}
         for i in range(3):
             for j in range(i, 3):
-                cov[i, j] = wmean(planes[i] * planes[j]) - means[i] * means[j]
-        a, b, c = cov[0, 0] + e, cov[0, 1], cov[0, 2]
-        d, f, g = cov[1, 1] + e, cov[1, 2], cov[2, 2] + e
+                cov[i, j] = centred(planes[i] * planes[j], means[i], means[j])
+        a, b, c = cov[0, 0], cov[0, 1], cov[0, 2]
+        d, f, g = cov[1, 1], cov[1, 2], cov[2, 2]
+        a += e
+        d += e
+        g += e
+
+        def minor(p: np.ndarray, q: np.ndarray, r: np.ndarray, s: np.ndarray) -> np.ndarray:
+            t = p * q
+            t -= r * s
+            return t
+
         # inverse of the symmetric 3x3 [[a b c] [b d f] [c f g]] by cofactors
-        i00, i01, i02 = d * g - f * f, c * f - b * g, b * f - c * d
-        i11, i12, i22 = a * g - c * c, b * c - a * f, a * d - b * b
-        det = a * i00 + b * i01 + c * i02
-        det = np.where(np.abs(det) > tiny, det, tiny)
-        inv_det = 1.0 / det
-        inv = [[i00 * inv_det, i01 * inv_det, i02 * inv_det],
-               [i01 * inv_det, i11 * inv_det, i12 * inv_det],
-               [i02 * inv_det, i12 * inv_det, i22 * inv_det]]
+        i00, i01, i02 = minor(d, g, f, f), minor(c, f, b, g), minor(b, f, c, d)
+        i11, i12, i22 = minor(a, g, c, c), minor(b, c, a, f), minor(a, d, b, b)
+        det = a * i00
+        det += b * i01
+        det += c * i02
+        det[~(np.abs(det) > tiny)] = tiny
+        inv_det = np.divide(1.0, det, out=det)
+        for m in (i00, i01, i02, i11, i12, i22):
+            m *= inv_det
+        inv = [[i00, i01, i02], [i01, i11, i12], [i02, i12, i22]]
 
     support = box_mean(w_mean, radius)
-    inv_s = 1.0 / np.maximum(support, tiny)
+    inv_s = np.maximum(support, tiny)
+    np.divide(1.0, inv_s, out=inv_s)
+
+    def spread(a: np.ndarray) -> np.ndarray:
+        t = np.multiply(w_mean, a)
+        box_mean(t, radius, out=t)
+        t *= inv_s
+        return t
+
     result = []
     for p in targets:
         mp = wmean(p)
-        cov_ip = [wmean(planes[i] * p) - means[i] * mp for i in range(n)]
-        coef = [sum(inv[i][j] * cov_ip[j] for j in range(n)) for i in range(n)]
-        offset = mp - sum(coef[i] * means[i] for i in range(n))
-        big_a = [box_mean(w_mean * coef[i], radius) * inv_s for i in range(n)]
-        big_b = box_mean(w_mean * offset, radius) * inv_s
+        cov_ip = [centred(planes[i] * p, means[i], mp) for i in range(n)]
+        coef = [_sum([inv[i][j] * cov_ip[j] for j in range(n)]) for i in range(n)]
+        offset = mp - _sum([coef[i] * means[i] for i in range(n)])
+        big_a = [spread(coef[i]) for i in range(n)]
+        big_b = spread(offset)
         result.append((big_a, big_b))
     return result, support
 
@@ -294,12 +374,18 @@ def weighted_guided_filter(planes: list[np.ndarray], targets: list[np.ndarray], 
             return cv2.resize(a, (w, h), interpolation=cv2.INTER_LINEAR)
 
         support = big(support_s)
-        inv_sup = 1.0 / np.maximum(support, np.float32(1e-12))
+        inv_sup = np.maximum(support, np.float32(1e-12))
+        np.divide(1.0, inv_sup, out=inv_sup)
+        scratch = np.empty((h, w), np.float32)
         out = []
         for big_a, big_b in coeffs:
-            q = big(support_s * big_b) * inv_sup
+            q = big(support_s * big_b)
+            q *= inv_sup
             for i, plane in enumerate(planes):
-                q += big(support_s * big_a[i]) * inv_sup * plane
+                t = cv2.resize(support_s * big_a[i], (w, h), dst=scratch, interpolation=cv2.INTER_LINEAR)
+                t *= inv_sup
+                t *= plane
+                q += t
             out.append(q.astype(np.float32, copy=False))
         return out, support
     coeffs, support = _coefficients(planes, targets, weight, radius, eps)

@@ -23,7 +23,7 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-__all__ = ["fb_consistency", "target_outside", "PAPER_RELATIVE", "PAPER_TOLERANCE"]
+__all__ = ["fb_consistency", "fb_check", "target_outside", "PAPER_RELATIVE", "PAPER_TOLERANCE"]
 
 #: Sundaram et al. (2010): alpha1 (dimensionless) and alpha2 (px^2) of the occlusion criterion.
 PAPER_RELATIVE = 0.01
@@ -108,20 +108,42 @@ def fb_consistency(fwd: np.ndarray, bwd_at_target: np.ndarray, *,
     >>> occ[0].tolist()       # the last two columns land outside B
     [0.0, 0.0, 0.0, 0.0, 1.0, 1.0]
     """
+    conf, occ, _ = fb_check(fwd, bwd_at_target, tolerance=tolerance, relative=relative)
+    return conf, occ
+
+
+def fb_check(fwd: np.ndarray, bwd_at_target: np.ndarray, *, tolerance: float = PAPER_TOLERANCE,
+             relative: float = PAPER_RELATIVE) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """`fb_consistency` plus `target_outside`, sharing the work: ``(conf, occ, outside)``, the
+    last a bool (H, W) array."""
     fwd = np.asarray(fwd, dtype=np.float32)
     bwd = np.asarray(bwd_at_target, dtype=np.float32)
     if fwd.shape != bwd.shape or fwd.ndim != 3 or fwd.shape[2] != 2:
         raise ValueError(f"fwd and bwd_at_target must both be (H, W, 2); got {fwd.shape} and {bwd.shape}")
+    h, w = fwd.shape[:2]
     xs, ys = _targets(fwd)
     back = cv2.remap(np.ascontiguousarray(bwd), xs, ys, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    outside = xs < 0
+    outside |= xs > w - 1
+    outside |= ys < 0
+    outside |= ys > h - 1
     fu, fv, bu, bv = fwd[:, :, 0], fwd[:, :, 1], back[:, :, 0], back[:, :, 1]
-    ru, rv = fu + bu, fv + bv
-    resid = ru * ru + rv * rv
-    thresh = np.float32(relative) * (fu * fu + fv * fv + bu * bu + bv * bv) + np.float32(tolerance)
-    thresh = np.maximum(thresh, np.float32(1e-12))   # tolerance 0 and a zero vector
-    conf = np.exp2(-resid / thresh).astype(np.float32)
-    h, w = fwd.shape[:2]
-    outside = (xs < 0) | (xs > w - 1) | (ys < 0) | (ys > h - 1)
-    occ = (resid >= thresh) | outside
+    # r^2 = |w + w'|^2 and T = relative (|w|^2 + |w'|^2) + tolerance, in place (xs, ys reused)
+    ru = np.add(fu, bu, out=xs)
+    ru *= ru
+    rv = np.add(fv, bv, out=ys)
+    rv *= rv
+    resid = np.add(ru, rv, out=ru)
+    thresh = np.multiply(fu, fu)
+    for a in (fv, bu, bv):
+        thresh += a * a
+    thresh *= np.float32(relative)
+    thresh += np.float32(tolerance)
+    np.maximum(thresh, np.float32(1e-12), out=thresh)   # tolerance 0 and a zero vector
+    occ = resid >= thresh
+    occ |= outside
+    conf = np.divide(resid, thresh, out=rv)
+    np.negative(conf, out=conf)
+    np.exp2(conf, out=conf)
     conf[outside] = 0.0
-    return conf, occ.astype(np.float32)
+    return conf, occ.astype(np.float32), outside

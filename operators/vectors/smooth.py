@@ -48,7 +48,7 @@ from operators.composite._channels import matte_values
 from operators.vectors._encode import perceptual
 from operators.vectors.flow import neighbour
 from operators.vectors.channels import BWD, FWD, SMOOTHED, VECTORS
-from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_consistency, target_outside
+from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_check
 
 __all__ = ["VECTOR_SMOOTH", "VectorSmoothParams", "weighted_median", "edge_aware_smooth", "fill_occluded",
            "smooth_direction", "DEFAULT_SIGMA_COLOR", "DOUBTFUL", "WEIGHT_FLOOR", "FILLED_WEIGHT", "FILL_TIE"]
@@ -157,9 +157,6 @@ def weighted_median(flow: np.ndarray, guide: np.ndarray | None = None, radius: i
     out = f.copy()
     if radius <= 0:
         return out
-    planes = F.guide_planes(guide, (h, w))
-    side = _side(matte, (h, w))
-    wts = _weights(weights, (h, w))
     u, v = np.ascontiguousarray(f[:, :, 0]), np.ascontiguousarray(f[:, :, 1])
     if skip_below > 0:
         active = (F.window_range(u, radius) >= skip_below) | (F.window_range(v, radius) >= skip_below)
@@ -170,39 +167,66 @@ def weighted_median(flow: np.ndarray, guide: np.ndarray | None = None, radius: i
     ys, xs = np.nonzero(active)
     if len(ys) == 0:
         return out
+    mu, mv = _median_at((u, v), F.guide_planes(guide, (h, w)), _weights(weights, (h, w)),
+                        _side(matte, (h, w)), ys, xs, radius, sigma_color, sigma_space, chunk)
+    out[ys, xs, 0] = mu
+    out[ys, xs, 1] = mv
+    return out
 
+
+def _median_at(comps: tuple[np.ndarray, np.ndarray], planes: list[np.ndarray], wts: np.ndarray,
+               side: np.ndarray | None, ys: np.ndarray, xs: np.ndarray, radius: int,
+               sigma_color: float, sigma_space: float | None,
+               chunk: int = 1 << 14) -> tuple[np.ndarray, np.ndarray]:
+    """The weighted median of `weighted_median` (``radius`` >= 1) of the contiguous (H, W) planes
+    ``comps`` at the pixels ``(ys, xs)``; returns the two components' medians, shape (N,) each.
+    ``wts``: weights with the floor added (`_weights`); ``side``: bool matte side or None."""
+    h, w = wts.shape
     r = radius
-    wp = w + 2 * r
-    up, vp = F.pad_flat(u, r), F.pad_flat(v, r)
-    wtp = F.pad_flat(wts, r)                            # 0 outside the frame: never chosen
-    gps = [F.pad_flat(g, r) for g in planes]
-    sp = F.pad_flat(side, r) if side is not None else None
-    offs, dy, dx = F.window_offsets(r, wp)
+    # Neighbours are gathered from the flat planes; a window reaching past the frame's edge takes
+    # a clamped in-frame index with weight 0 there (a zero-weight value is never the median).
+    flat_u, flat_v = comps[0].ravel(), comps[1].ravel()
+    flat_w = wts.ravel()
+    flat_g = [g.ravel() for g in planes]
+    flat_s = side.ravel() if side is not None else None
+    offs, dy, dx = F.window_offsets(r, w)
     ss = float(sigma_space) if sigma_space else float(r)
     spatial = np.exp(-(dy * dy + dx * dx) / (2.0 * ss * ss)).astype(np.float32)
     inv2sc = np.float32(1.0 / (2.0 * float(sigma_color) ** 2))
-    centres = ((ys + r) * wp + (xs + r)).astype(np.intp)
+    ys, xs = ys.astype(np.intp), xs.astype(np.intp)
+    centres = ys * w + xs
+    near_edge = (ys < r) | (ys >= h - r) | (xs < r) | (xs >= w - r)
+    mu = np.empty(len(ys), np.float32)
+    mv = np.empty(len(ys), np.float32)
 
     for start in range(0, len(centres), chunk):
-        c = centres[start:start + chunk]
-        nb = c[:, None] + offs[None, :]
-        wt = np.take(wtp, nb)
+        part = slice(start, start + chunk)
+        c = centres[part]
+        if near_edge[part].any():
+            ny, nx = ys[part, None] + dy[None, :], xs[part, None] + dx[None, :]
+            inside = (ny >= 0) & (ny < h) & (nx >= 0) & (nx < w)
+            nb = np.clip(ny, 0, h - 1) * w + np.clip(nx, 0, w - 1)
+        else:
+            inside = None
+            nb = c[:, None] + offs[None, :]
+        wt = np.take(flat_w, nb)
         wt *= spatial[None, :]
-        if gps:
+        if inside is not None:
+            wt *= inside
+        if flat_g:
             d2 = np.zeros(nb.shape, np.float32)
-            for g in gps:
+            for g in flat_g:
                 diff = np.take(g, nb)
                 diff -= np.take(g, c)[:, None]
                 diff *= diff
                 d2 += diff
             d2 *= -inv2sc
             wt *= np.exp(d2, out=d2)
-        if sp is not None:
-            wt *= np.take(sp, nb) == np.take(sp, c)[:, None]
-        sl = (ys[start:start + chunk], xs[start:start + chunk])
-        out[sl[0], sl[1], 0] = F.weighted_median_rows(np.take(up, nb), wt)
-        out[sl[0], sl[1], 1] = F.weighted_median_rows(np.take(vp, nb), wt)
-    return out
+        if flat_s is not None:
+            wt *= np.take(flat_s, nb) == np.take(flat_s, c)[:, None]
+        mu[part] = F.weighted_median_rows(np.take(flat_u, nb), wt)
+        mv[part] = F.weighted_median_rows(np.take(flat_v, nb), wt)
+    return mu, mv
 
 
 # -- edge-aware smoothing ------------------------------------------------------------------------------
@@ -297,7 +321,6 @@ def edge_aware_smooth(flow: np.ndarray, guide: np.ndarray | None, conf: np.ndarr
             part, _ = F.weighted_guided_filter(planes, comps, wts * here, radius, eps, subsample)
             for q, p in zip(filtered, part):
                 q[here] = p[here]
-    q = np.stack(filtered, axis=2)
 
     def far(a: list[np.ndarray] | np.ndarray, b: list[np.ndarray] | np.ndarray) -> np.ndarray:
         return np.maximum(np.abs(a[0] - b[0]), np.abs(a[1] - b[1])) > jump
@@ -306,15 +329,28 @@ def edge_aware_smooth(flow: np.ndarray, guide: np.ndarray | None, conf: np.ndarr
     if median_radius > 0 and (fallback or median_at is not None):
         at = np.zeros((h, w), bool) if median_at is None else np.asarray(median_at, bool)
         band = (far(filtered, comps) & ~at) if fallback else np.zeros((h, w), bool)
-        targets = band | at
-        if targets.any():
-            med = weighted_median(f, guide, median_radius, sigma_color, weights=conf, matte=matte,
-                                  where=targets, skip_below=0.0)
-            take = band | (at & far(filtered, [med[:, :, 0], med[:, :, 1]])) if fallback else targets
-            q[take] = med[take]
+        ys, xs = np.nonzero(band | at)
+        if len(ys):
+            # the weighted median at the targets only; where it replaces the filtered value
+            med = _median_at((comps[0], comps[1]), planes, wts, side, ys, xs,
+                             median_radius, sigma_color, None)
+            if fallback:
+                fq = [q[ys, xs] for q in filtered]
+                take = band[ys, xs] | (at[ys, xs] & far(fq, med))
+                ys, xs = ys[take], xs[take]
+                med = (med[0][take], med[1][take])
+            for q, m in zip(filtered, med):
+                q[ys, xs] = m
     c = np.ones((h, w), np.float32) if conf is None else np.clip(np.asarray(conf, np.float32), 0, 1)
-    beta = (1.0 - (1.0 - float(strength)) * c)[:, :, None]
-    return (f + beta * (q - f)).astype(np.float32)
+    beta = 1.0 - (1.0 - float(strength)) * c
+    out = np.empty((h, w, 2), np.float32)
+    for k in range(2):      # f + beta (q - f), per component
+        d = filtered[k]
+        d -= comps[k]
+        d *= beta
+        d += comps[k]
+        out[:, :, k] = d
+    return out
 
 
 # -- occlusion filling ---------------------------------------------------------------------------------
@@ -390,11 +426,20 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
     side = _side(matte, (h, w))
     valid = ~occ_b
 
-    left, right = F.nearest_valid(valid, side)
-    up_t, down_t = F.nearest_valid(np.ascontiguousarray(valid.T),
-                                   np.ascontiguousarray(side.T) if side is not None else None)
-    cand_y = np.stack([ys, ys, up_t[xs, ys], down_t[xs, ys]], axis=1)
-    cand_x = np.stack([left[ys, xs], right[ys, xs], xs, xs], axis=1)
+    if side is None:
+        left, right, up, down = F.nearest_valid_at(occ_b, ys, xs)
+    else:
+        # scanline searches along the rows and columns that hold a pixel to refill
+        rows, cols = np.flatnonzero(todo.any(axis=1)), np.flatnonzero(todo.any(axis=0))
+        row_at, col_at = np.zeros(h, np.intp), np.zeros(w, np.intp)
+        row_at[rows], col_at[cols] = np.arange(len(rows)), np.arange(len(cols))
+        left_r, right_r = F.nearest_valid(valid[rows], side[rows])
+        up_t, down_t = F.nearest_valid(np.ascontiguousarray(valid[:, cols].T),
+                                       np.ascontiguousarray(side[:, cols].T))
+        ri, ci = row_at[ys], col_at[xs]
+        left, right, up, down = left_r[ri, xs], right_r[ri, xs], up_t[ci, ys], down_t[ci, ys]
+    cand_y = np.stack([ys, ys, up, down], axis=1)
+    cand_x = np.stack([left, right, xs, xs], axis=1)
     ok = np.stack([cand_x[:, 0] >= 0, cand_x[:, 1] >= 0, cand_y[:, 2] >= 0, cand_y[:, 3] >= 0], axis=1)
     cy, cx = np.where(ok, cand_y, 0), np.where(ok, cand_x, 0)
     cand_v = f[cy, cx]                                         # (n, 4, 2)
@@ -495,12 +540,12 @@ def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.nda
     if reverse is None:
         zero = np.zeros((h, w), np.float32)
         return f.copy(), zero, zero.copy()
-    conf, occ = fb_consistency(f, reverse, tolerance=tolerance, relative=relative)
+    conf, occ, outside = fb_check(f, reverse, tolerance=tolerance, relative=relative)
     guide = F.guide_planes(guide, (h, w)) or None        # split once for every step
     out = f
     weight = conf.copy()
     if fill:
-        refill = (occ > 0.5) & ~target_outside(f)
+        refill = (occ > 0.5) & ~outside
         if refill.any():
             out = fill_occluded(out, occ, guide, matte=matte, rule=fill_rule, refill=refill)
             weight[refill] = FILLED_WEIGHT
@@ -642,7 +687,7 @@ def _finite(px: np.ndarray, what: str, bad: list[str]) -> np.ndarray:
 def _guide(image: Image) -> np.ndarray:
     colour = image.color_names()
     if colour:
-        px = image.select(colour).pixels
+        px = _planes(image, colour)        # a view where the channels are adjacent
         if len(colour) == 2:
             px = px.mean(axis=2, keepdims=True)
     elif len(image.channels) == 1:
@@ -717,7 +762,7 @@ def vector_smooth(params: VectorSmoothParams, inputs: Mapping[str, Any], ctx: Op
     behind = None if prev is None else _finite(_planes(prev, FWD), f"at the previous {word}", bad)
     if bad:
         ctx.warn("non-finite vectors (NaN or infinity) replaced with 0: " + "; ".join(bad))
-    guide = _guide(image)
+    guide = F.guide_planes(_guide(image), (cur.height, cur.width))   # split once for both directions
     matte = _matte(matte_img) if matte_img is not None else None
 
     options = dict(matte=matte, tolerance=params.consistency_tolerance,
@@ -727,11 +772,10 @@ def vector_smooth(params: VectorSmoothParams, inputs: Mapping[str, Any], ctx: Op
                    sigma_color=params.sigma_color, smooth_radius=params.smooth_radius,
                    smooth_strength=params.smooth_strength, smooth_subsample=params.smooth_subsample,
                    smooth_jump=params.smooth_jump)
-    out = np.empty((cur.height, cur.width, len(SMOOTHED)), np.float32)
     fwd, fconf, focc = smooth_direction(here_fwd, ahead, guide, **options)
-    out[:, :, 0:2], out[:, :, 4], out[:, :, 6] = fwd, fconf, focc
     bwd, bconf, bocc = smooth_direction(here_bwd, behind, guide, **options)
-    out[:, :, 2:4], out[:, :, 5], out[:, :, 7] = bwd, bconf, bocc
+    # interleaved in one pass, in the order of SMOOTHED
+    out = np.concatenate([fwd, bwd] + [p[:, :, None] for p in (fconf, bconf, focc, bocc)], axis=2)
     meta = dict(cur.meta)
     meta["vectors.smoothed"] = True
     return Image(out, SMOOTHED, meta)

@@ -33,7 +33,7 @@ from graphcore.sample import Sample
 from operators.io.transfer import encode
 from operators.vectors import _filters as F
 from operators.vectors.channels import SMOOTHED, VECTORS
-from operators.vectors.consistency import fb_consistency, target_outside
+from operators.vectors.consistency import fb_check, fb_consistency, target_outside
 from operators.vectors.smooth import (VECTOR_SMOOTH, VectorSmoothParams, edge_aware_smooth,
                                       fill_occluded, smooth_direction, weighted_median)
 from tests.operators.conftest import op_runner
@@ -145,6 +145,18 @@ def test_identical_frames_give_zero_vectors_full_confidence_and_no_occlusion():
     np.testing.assert_array_equal(out, 0.0)
     np.testing.assert_array_equal(conf, 1.0)
     np.testing.assert_array_equal(occ, 0.0)
+
+
+def test_fb_check_is_fb_consistency_and_target_outside_together():
+    # exact invariant: the shared-work form returns what the two public functions do
+    rng = np.random.default_rng(8)
+    fwd = rng.normal(0, 4, (20, 30, 2)).astype(np.float32)
+    bwd = (-fwd + rng.normal(0, 1, fwd.shape)).astype(np.float32)
+    conf, occ, outside = fb_check(fwd, bwd)
+    want_conf, want_occ = fb_consistency(fwd, bwd)
+    np.testing.assert_array_equal(conf, want_conf)
+    np.testing.assert_array_equal(occ, want_occ)
+    np.testing.assert_array_equal(outside, target_outside(fwd))
 
 
 def test_occlusion_is_confidence_below_one_half():
@@ -405,6 +417,32 @@ def test_fill_with_no_candidate_keeps_the_vector():
     flow = np.full((5, 6, 2), 3.0, np.float32)
     out = fill_occluded(flow, np.ones((5, 6), np.float32))
     np.testing.assert_array_equal(out, flow)
+
+
+def test_nearest_valid_at_matches_the_scanline_search_exactly():
+    # exact invariant: the run-based search answers what the full-row/column scan does
+    rng = np.random.default_rng(11)
+    for _ in range(100):
+        h, w = rng.integers(1, 14, 2)
+        invalid = rng.random((h, w)) < rng.random()
+        invalid[:, 0] |= rng.random(h) < 0.5            # runs touching the frame's edges
+        ys, xs = np.nonzero(invalid)
+        left, right = F.nearest_valid(~invalid, None)
+        up, down = F.nearest_valid(np.ascontiguousarray(~invalid.T), None)
+        got = F.nearest_valid_at(invalid, ys, xs)
+        for g, want in zip(got, (left[ys, xs], right[ys, xs], up[xs, ys], down[xs, ys])):
+            np.testing.assert_array_equal(g, want)
+
+
+def test_nearest_valid_at_known_answer():
+    invalid = np.array([[0, 1, 1, 0, 1],
+                        [1, 1, 0, 0, 0]], bool)
+    ys, xs = np.nonzero(invalid)                        # (0,1) (0,2) (0,4) (1,0) (1,1)
+    left, right, up, down = F.nearest_valid_at(invalid, ys, xs)
+    assert left.tolist() == [0, 0, 3, -1, -1]
+    assert right.tolist() == [3, 3, -1, 2, 2]
+    assert up.tolist() == [-1, -1, -1, 0, -1]
+    assert down.tolist() == [-1, 1, 1, -1, -1]
 
 
 # -- matte -------------------------------------------------------------------------------------------------
