@@ -150,18 +150,15 @@ class DiskCache:
             log.debug("cache: metadata of %s is not JSON; not stored on disk", key[:12])
             return False
         npy.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=".tmp-", dir=npy.parent)
-        try:
-            with os.fdopen(fd, "wb") as fh:
-                writer = _HashingWriter(fh)
-                np.lib.format.write_array(writer, np.ascontiguousarray(image.pixels), allow_pickle=False)
-            os.replace(tmp, npy)
-        except BaseException:
-            try:
-                os.unlink(tmp)
-            except OSError:
-                pass
-            raise
+        pixels = np.ascontiguousarray(image.pixels)
+        writers: list[_HashingWriter] = []
+
+        def fill(fh) -> None:
+            writers.append(_HashingWriter(fh))
+            np.lib.format.write_array(writers[0], pixels, allow_pickle=False)
+
+        _write_atomically(npy, fill)
+        writer = writers[0]
         record = {"channels": list(image.channels), "meta": json.loads(meta_text), "nbytes": writer.count,
                   "sha256": writer.hash.hexdigest(), "format": "npy"}
         _atomic_write(meta_path, json.dumps(record, sort_keys=True).encode())
@@ -245,11 +242,13 @@ def _npy_view(data: bytes) -> np.ndarray:
     return arr.reshape(shape, order="F" if fortran else "C")
 
 
-def _atomic_write(path: Path, data: bytes) -> None:
+def _write_atomically(path: Path, fill) -> None:
+    """Call ``fill(file)`` on a temporary file beside ``path``, then rename it into place; on any
+    failure the temporary file is removed and ``path`` is untouched."""
     fd, tmp = tempfile.mkstemp(prefix=".tmp-", dir=path.parent)
     try:
         with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
+            fill(fh)
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -257,6 +256,10 @@ def _atomic_write(path: Path, data: bytes) -> None:
         except OSError:
             pass
         raise
+
+
+def _atomic_write(path: Path, data: bytes) -> None:
+    _write_atomically(path, lambda fh: fh.write(data))
 
 
 class Cache:
