@@ -123,3 +123,28 @@ def test_template_declares_exactly_the_design_variables():
 
     doc = json.loads((GRAPHS / "retime.json").read_text())
     assert sorted(doc["vars"]) == ["dst", "slowdown", "src"]
+
+
+def test_speed_up_with_shutter_blur_from_a_show_defaults_file(tmp_path):
+    """A x2 speed-up: without a shutter, output frames are the even source frames unchanged; with a
+    180-degree shutter (common practice) set in a show defaults file, the moving square is smeared
+    along its motion while the still background stays as it was."""
+    import json
+
+    src = sequence(tmp_path / "src", 5, np.float32)
+    rc, _, err = run_retime(src, f"{tmp_path}/sharp/o.%04d.exr", "0.5")
+    assert rc == 0, err
+    show = tmp_path / "show.json"
+    show.write_text(json.dumps({"schema": "midframe.defaults", "version": 1,
+                                "params": {"retime": {"shutter": 180, "shutter_samples": 4}}}))
+    rc, _, err = run_retime(src, f"{tmp_path}/blur/o.%04d.exr", "0.5", "--defaults", str(show))
+    assert rc == 0, err
+    sharp = raw_channels(tmp_path / "sharp" / f"o.{FIRST + 1:04d}.exr")["R"].astype(np.float64)
+    blur = raw_channels(tmp_path / "blur" / f"o.{FIRST + 1:04d}.exr")["R"].astype(np.float64)
+    truth = picture(2, np.float64)["R"]
+    assert np.array_equal(sharp, picture(2, np.float32)["R"].astype(np.float64))  # source frame 1003
+    still = (np.abs(picture(1.75, np.float64)["R"] - truth) < 1e-9) & (np.abs(picture(2.25, np.float64)["R"] - truth) < 1e-9)
+    moving = ~still
+    err_still, err_moving = np.abs(blur - truth)[still], np.abs(blur - truth)[moving]
+    assert err_still.mean() < 0.002 and np.percentile(err_still, 99) < 0.02  # background as it was
+    assert err_moving.mean() > 5 * err_still.mean() and err_moving.mean() > 0.01  # the square is smeared

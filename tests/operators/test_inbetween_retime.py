@@ -188,3 +188,34 @@ def test_first_and_last_default_to_the_input_range():
 def test_declaration():
     assert RETIME.name == "retime" and [p.name for p in RETIME.inputs] == ["image"]
     assert RETIME.edge_samples and RETIME.frames is not None
+
+
+def test_shutter_times_worked_by_hand():
+    """Speed-up x4 (slowdown 1/4) with a 180-degree shutter (common practice): the output frame spans
+    4 source frames, the plate's own blur covers one, so 180/360 * (4 - 1) = 3/2 source frames are
+    sampled, 4 midpoints of equal slices centred on the source time (worked by hand)."""
+    from operators.inbetween.retime import shutter_times
+
+    p = RetimeParams(slowdown="1/4", shutter=180, shutter_samples=4)
+    # output 1003 shows source 1001 + 2 * 4 = 1009; slices of 3/8 centred on it
+    assert shutter_times(p, 1003, 1001, 1100) == (F(1009) - F(3, 4) + F(3, 16), F(1009) - F(3, 16),
+                                                    F(1009) + F(3, 16), F(1009) + F(3, 4) - F(3, 16))
+    assert shutter_times(p, 1001, 1001, 1100)[0] == 1001  # clamped to the source's first frame
+    assert shutter_times(RetimeParams(slowdown=2, shutter=180), 1003, 1001, 1100) == (F(1002),)  # slow-down
+    assert shutter_times(RetimeParams(slowdown="1/4"), 1003, 1001, 1100) == (F(1009),)  # shutter off
+
+
+def test_shutter_blur_averages_the_inbetweens():
+    import numpy as np
+
+    from graphcore.image import Image
+    from graphcore.registry import InputRange
+    from tests.operators.conftest import op_context
+
+    p = RetimeParams(slowdown="1/3", shutter=360, shutter_samples=2)
+    asked = retime_needs(p, Sample(1002), {"image": InputRange(FrameRange(1001, 1020), None)})
+    assert asked == {"image": (Sample(F(1004) - F(1, 2)), Sample(F(1004) + F(1, 2)))}
+    a = Image(np.zeros((2, 2, 1), np.float32), ("Y",))
+    b = Image(np.ones((2, 2, 1), np.float32), ("Y",))
+    out = RETIME.compute(p, {"image": (a, b)}, op_context(Sample(1002)))
+    assert np.all(out.pixels == 0.5)
