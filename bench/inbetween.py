@@ -44,12 +44,8 @@ import numpy as np
 
 sys.path.insert(0, os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
 
-REPO = Path(__file__).resolve().parents[1]
-
-
-def psnr(a: np.ndarray, b: np.ndarray) -> float:
-    mse = float(np.mean((a.astype(np.float64) - b.astype(np.float64)) ** 2))
-    return float("inf") if mse == 0 else 10 * np.log10(1.0 / mse)
+from graphcore.errors import InputError, MidframeError  # noqa: E402
+from graphcore.leave_one_out import psnr, rebuild_with_retime, two_way_dis_warp  # noqa: E402
 
 
 # -- baselines on sRGB-encoded float frames (H, W, 3) in 0..1 ----------------------------------------
@@ -61,67 +57,22 @@ def dissolve(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return 0.5 * (a + b)
 
 
-def _grey8(x: np.ndarray) -> np.ndarray:
-    return np.clip(x[..., :3] @ np.array([0.2126, 0.7152, 0.0722]) * 255 + 0.5, 0, 255).astype(np.uint8)
-
-
-def dis_warp(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Plain two-way DIS warp: vectors both ways (OpenCV DIS, medium preset), each neighbour sampled
-    at x - t*F(x) with the vectors taken at the in-between's own pixel (no splatting, no occlusion
-    reasoning), then averaged."""
-    dis = cv2.DISOpticalFlow_create(cv2.DISOPTICAL_FLOW_PRESET_MEDIUM)
-    fab = dis.calc(_grey8(a), _grey8(b), None)
-    fba = dis.calc(_grey8(b), _grey8(a), None)
-    h, w = a.shape[:2]
-    xs, ys = np.meshgrid(np.arange(w, dtype=np.float32), np.arange(h, dtype=np.float32))
-    wa = cv2.remap(a.astype(np.float32), xs - 0.5 * fab[..., 0], ys - 0.5 * fab[..., 1], cv2.INTER_LINEAR,
-                   borderMode=cv2.BORDER_REPLICATE)
-    wb = cv2.remap(b.astype(np.float32), xs - 0.5 * fba[..., 0], ys - 0.5 * fba[..., 1], cv2.INTER_LINEAR,
-                   borderMode=cv2.BORDER_REPLICATE)
-    return 0.5 * (wa + wb)
-
-
-# -- ours: the real pipeline through graphs/retime.json -----------------------------------------------
 def ours_sequence(kept: list[np.ndarray], workdir: Path, quality: str = "standard",
                   defaults: Path | None = None, pixel_type: str = "float",
                   timings: dict[int, float] | None = None) -> list[np.ndarray]:
-    """Rebuild the in-betweens of ``kept`` (sRGB-encoded frames) with the retime template at
-    slowdown 2; returns the rebuilt frames (sRGB-encoded), one between each pair. ``defaults``: a
-    show defaults file for the render (it overrides ``quality``). ``pixel_type``: how the source plates
-    are stored (the template writes what the plate has). ``timings``, if given, receives the render's
-    seconds per output frame."""
-    from graphcore.errors import InputError
-    from graphcore.execute.render import render
-    from graphcore.image import Image
-    from operators.io.exr import read_exr, write_exr
-    from operators.io.transfer import decode, encode
-
-    src = workdir / "src"
-    dst = workdir / "dst"
-    src.mkdir(parents=True, exist_ok=True)
-    first = 1001
-    for i, frame in enumerate(kept):
-        lin = decode("srgb", frame.astype(np.float32))
-        img = Image(np.dstack([lin, np.ones(lin.shape[:2], np.float32)]), ("R", "G", "B", "A"))
-        write_exr(str(src / f"f.{first + i:04d}.exr"), img, default_pixel_type=pixel_type)
-    sets = [f"src={src}/f.%04d.exr", f"dst={dst}/f.%04d.exr", "slowdown=2"]
+    """Ours through graphs/retime.json (see graphcore.leave_one_out); ``quality`` other than standard
+    is passed as a show defaults file unless ``defaults`` is given."""
     if defaults is None and quality != "standard":
         defaults = workdir / "show.json"
+        workdir.mkdir(parents=True, exist_ok=True)
         defaults.write_text('{"schema": "midframe.defaults", "version": 1, "params": {"flow-estimate": '
                             f'{{"quality": "{quality}"}}}}}}')
     try:
-        out = render(str(REPO / "graphs" / "retime.json"), sets=sets, defaults=defaults)
+        return rebuild_with_retime(kept, workdir, defaults=defaults, pixel_type=pixel_type, timings=timings)
     except InputError as exc:
         raise SystemExit(exc.describe()) from None
-    if out.report.failed:
-        raise SystemExit(out.report.failed[0].message)
-    if timings is not None:
-        timings.update({r.frame: r.seconds for r in out.report.results})
-    rebuilt = []
-    for i in range(len(kept) - 1):
-        img = read_exr(str(dst / f"f.{first + 2 * i + 1:04d}.exr"))
-        rebuilt.append(np.clip(encode("srgb", img.select(("R", "G", "B")).pixels), 0, 1))
-    return rebuilt
+    except MidframeError as exc:
+        raise SystemExit(str(exc)) from None
 
 
 # -- sequences -------------------------------------------------------------------------------------------
@@ -161,7 +112,7 @@ def leave_one_out(frames: list[np.ndarray], workdir: Path, defaults: Path | None
         a, b = kept[i], kept[i + 1]
         scores["frame repeat"].append(psnr(repeat(a, b), t))
         scores["cross-dissolve"].append(psnr(dissolve(a, b), t))
-        scores["two-way DIS warp"].append(psnr(dis_warp(a, b), t))
+        scores["two-way DIS warp"].append(psnr(two_way_dis_warp(a, b), t))
     rebuilt = ours_sequence(kept, workdir, defaults=defaults)
     scores["midframe (retime.json)"] = [psnr(r, t) for r, t in zip(rebuilt, truth)]
     return scores
@@ -194,7 +145,7 @@ def time_2k(workdir: Path, frames: int = 4, defaults: Path | None = None) -> tup
     for i in range(frames):
         a = read_exr(str(src / f"f.{i:04d}.exr")).pixels
         b = read_exr(str(src / f"f.{i + 1:04d}.exr")).pixels
-        mid = dis_warp(np.asarray(a), np.asarray(b))
+        mid = two_way_dis_warp(np.asarray(a), np.asarray(b))
         write_exr(str(src / f"mid.{i:04d}.exr"), Image(mid, ("R", "G", "B", "A")), default_pixel_type="half")
     plain = (time.perf_counter() - t0) / frames
     return ours, plain
