@@ -150,3 +150,26 @@ def smooth_curve(xs: Sequence[Fraction], ys: Sequence[Fraction], x: Fraction,
     h00, h10 = 2 * s3 - 3 * s2 + 1, s3 - 2 * s2 + s
     h01, h11 = -2 * s3 + 3 * s2, s3 - s2
     return h00 * ys[i] + h10 * hh * m[i] + h01 * ys[i + 1] + h11 * hh * m[i + 1]
+
+
+def parse_keys(value: object, lengths: tuple[int, ...], shape: str) -> tuple[tuple, ...]:
+    """Keys of a keyed curve: each a list whose first item is a whole output frame and whose other
+    items are exact times (``canonical`` text), in increasing output frames. ``lengths``: allowed key
+    lengths; ``shape``: how a key is written, for messages (e.g. '[output_frame, source_time]')."""
+    if not isinstance(value, (list, tuple)):
+        raise ValueError(f"keys must be a list of {shape} keys")
+    out = []
+    for i, key in enumerate(value):
+        if not isinstance(key, (list, tuple)) or len(key) not in lengths:
+            raise ValueError(f"key {i} is {key!r}; write each key as {shape}")
+        frame = key[0]
+        if isinstance(frame, float) and frame.is_integer():
+            frame = int(frame)
+        if isinstance(frame, bool) or not isinstance(frame, int):
+            raise ValueError(f"key {i}: output frame {frame!r} must be a whole number")
+        out.append((frame, *(canonical(parse_time(x)) for x in key[1:])))
+    for i in range(1, len(out)):
+        if out[i][0] <= out[i - 1][0]:
+            raise ValueError(f"key {i}: output frame {out[i][0]} does not come after {out[i - 1][0]}; "
+                             "list keys by increasing output frame, one per frame")
+    return tuple(out)

@@ -54,8 +54,7 @@ from graphcore.errors import OpError
 from graphcore.image import Image
 from graphcore.registry.operator import InputRange, FrameRange, OpContext, Operator, Port
 from graphcore.sample import Sample
-from operators.inbetween._timing import (canonical, linear_curve, parse_positive, parse_rate, parse_time,
-                                         pchip_slopes, smooth_curve)
+from operators.inbetween._timing import (canonical, parse_keys, linear_curve, parse_positive, parse_rate, pchip_slopes, smooth_curve)
 
 __all__ = ["RETIME", "RetimeParams", "source_time", "retime_needs", "output_range", "shutter_times"]
 
@@ -118,25 +117,7 @@ class RetimeParams(BaseModel):
     @field_validator("keys", mode="before")
     @classmethod
     def _keys(cls, v: Any) -> Any:
-        if v is None:
-            return None
-        out = []
-        for i, pair in enumerate(v):
-            if not isinstance(pair, (list, tuple)) or len(pair) != 2:
-                raise ValueError(f"key {i} is {pair!r}; write each key as [output_frame, source_time]")
-            frame, when = pair
-            if isinstance(frame, bool) or not isinstance(frame, int):
-                if isinstance(frame, float) and frame.is_integer():
-                    frame = int(frame)
-                else:
-                    raise ValueError(f"key {i}: output frame {frame!r} must be a whole number")
-            out.append((frame, canonical(parse_time(when))))
-        frames = [f for f, _ in out]
-        for i in range(1, len(frames)):
-            if frames[i] <= frames[i - 1]:
-                raise ValueError(f"key {i}: output frame {frames[i]} does not come after "
-                                 f"{frames[i - 1]}; list keys by increasing output frame, one per frame")
-        return tuple(out)
+        return None if v is None else parse_keys(v, (2,), "[output_frame, source_time]")
 
     @model_validator(mode="after")
     def _check(self) -> "RetimeParams":

@@ -57,7 +57,7 @@ from graphcore.image import Image
 from graphcore.registry.operator import FrameRange, InputRange, OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.inbetween._parallax import measure_parallax
-from operators.inbetween._timing import canonical, linear_curve, parse_time, pchip_slopes, smooth_curve
+from operators.inbetween._timing import canonical, linear_curve, parse_keys, parse_time, pchip_slopes, smooth_curve
 
 __all__ = ["VIEW_PATH", "ViewPathParams", "path_point", "view_path_needs", "output_range", "view_path"]
 
@@ -118,27 +118,11 @@ class ViewPathParams(BaseModel):
     def _keys(cls, v: Any) -> Any:
         if v is None:
             return None
-        if not isinstance(v, (list, tuple)):
-            raise ValueError("keys must be a list of [output_frame, view, time] triples")
-        out = []
-        for i, key in enumerate(v):
-            if not isinstance(key, (list, tuple)) or len(key) not in (2, 3):
-                raise ValueError(f"key {i} is {key!r}; write each key as [output_frame, view, time] "
-                                 "or [output_frame, view]")
-            frame = key[0]
-            if isinstance(frame, float) and frame.is_integer():
-                frame = int(frame)
-            if isinstance(frame, bool) or not isinstance(frame, int):
-                raise ValueError(f"key {i}: output frame {frame!r} must be a whole number")
-            out.append((frame, *(canonical(parse_time(x)) for x in key[1:])))
+        out = parse_keys(v, (2, 3), "[output_frame, view, time] or [output_frame, view]")
         if len({len(k) for k in out}) != 1:
             raise ValueError("some keys give a time and some do not; give [output_frame, view, time] "
                              "for every key, or [output_frame, view] for every key")
-        for i in range(1, len(out)):
-            if out[i][0] <= out[i - 1][0]:
-                raise ValueError(f"key {i}: output frame {out[i][0]} does not come after "
-                                 f"{out[i - 1][0]}; list keys by increasing output frame, one per frame")
-        return tuple(out)
+        return out
 
     @model_validator(mode="after")
     def _check(self) -> "ViewPathParams":
