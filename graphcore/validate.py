@@ -30,12 +30,15 @@ __all__ = ["load_graph", "load_document", "load_defaults", "Loaded"]
 
 
 class Loaded:
-    """Result of ``load_graph``: the graph, warnings, and the version the file was written at."""
+    """Result of ``load_graph``: the graph (None for a template checked with variables unset),
+    warnings, the version the file was written at, and the document upgraded to the current version."""
 
-    def __init__(self, graph: Graph, warnings: list[GraphError], written_version: int):
+    def __init__(self, graph: Graph | None, warnings: list[GraphError], written_version: int,
+                 document: dict[str, Any] | None = None):
         self.graph = graph
         self.warnings = warnings
         self.written_version = written_version
+        self.document = document or {}
 
 
 def _suggest(word: str, options: Iterable[str]) -> str:
@@ -350,10 +353,10 @@ def load_graph(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iter
     if errors:
         raise GraphErrors(_dedupe(errors), file=file)
     if unset or len(nodes) != len(node_specs):
-        return Loaded(None, warnings, written)  # type: ignore[arg-type]  # check mode, template unset
+        return Loaded(None, warnings, written, doc)  # check mode, template unset
     graph = Graph(nodes=nodes, file=file, doc=spec.doc, variables=values,
                   source={"schema": SCHEMA_LABEL, "version": CURRENT_VERSION, "nodes": resolved_doc})
-    return Loaded(graph, warnings, written)
+    return Loaded(graph, warnings, written, doc)
 
 
 def _has_placeholder(value: Any) -> bool:

@@ -9,7 +9,6 @@ from __future__ import annotations
 import argparse
 import json
 import logging
-import os
 import re
 import shutil
 import subprocess
@@ -137,7 +136,8 @@ def cmd_check(args: argparse.Namespace) -> int:
     loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg, allow_unset=True)
     _print_warnings(loaded.warnings)
     if loaded.graph is None:
-        print(f"{args.graph}: valid template ({loaded_nodes(args.graph)}); set its variables to check files too")
+        n = len(loaded.document.get("nodes") or {})
+        print(f"{args.graph}: valid template ({n} nodes); set its variables to check files too")
         return EXIT_OK
     ev = Evaluator(loaded.graph, reg)
     frames = output_frames(ev, None) if ev.sinks() else []
@@ -146,15 +146,6 @@ def cmd_check(args: argparse.Namespace) -> int:
     span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
     print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
     return EXIT_OK
-
-
-def loaded_nodes(path: str) -> str:
-    try:
-        with open(path) as fh:
-            n = len(json.load(fh).get("nodes", {}))
-        return f"{n} nodes"
-    except (OSError, ValueError, AttributeError):
-        return "graph"
 
 
 def cmd_run(args: argparse.Namespace) -> int:
@@ -234,13 +225,7 @@ def cmd_graph(args: argparse.Namespace) -> int:
 
     reg = _registry(args.plugins)
     loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg, allow_unset=True)
-    with open(args.graph, encoding="utf-8-sig") as fh:
-        doc = json.load(fh)
-    from graphcore.schema.upgrade import upgrade
-
-    doc, _ = upgrade(doc)
-    del loaded
-    dot = graph_dot(doc, reg)
+    dot = graph_dot(loaded.document, reg)
     if args.format == "dot":
         if args.out:
             with open(args.out, "w") as fh:

@@ -17,7 +17,6 @@ import os
 import sys
 import time
 
-import numpy as np
 
 from graphcore import __version__
 from graphcore.errors import InputError
@@ -45,12 +44,12 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
                  search_range: float | None = None, prefilter: float = 0.0, raw: bool = False) -> Image:
     """Vectors both ways between two images, as one Image (channels as in the module docstring)."""
     from operators.vectors.consistency import fb_consistency
-    from operators.vectors.flow import FlowParams, _match_channels, estimate_pair, perceptual
+    from operators.vectors.flow import FlowParams, match_channels, estimate_pair, perceptual
     from operators.vectors.smooth import smooth_direction
 
     params = FlowParams(engine=engine, quality=quality, search_range=search_range, prefilter=prefilter)
-    channels = _match_channels(first, None)
-    _match_channels(second, channels)
+    channels = match_channels(first, None)
+    match_channels(second, channels)
     a, b = perceptual(first, channels), perceptual(second, channels)
     if engine == "midframe" and min(a.shape[:2]) >= 2:
         # both directions in one solve: shared pyramids and features

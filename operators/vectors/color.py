@@ -19,7 +19,7 @@ Evaluation Methodology for Optical Flow", IJCV 92(1), 2011, doi:10.1007/s11263-0
 from __future__ import annotations
 
 from collections.abc import Mapping
-from typing import Any, Literal
+from typing import Any
 
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field

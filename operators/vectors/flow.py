@@ -32,7 +32,7 @@ from graphcore.registry import OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.vectors.channels import BWD, FWD
 
-__all__ = ["FLOW_ESTIMATE", "FlowParams", "perceptual", "estimate_pair", "neighbour"]
+__all__ = ["FLOW_ESTIMATE", "FlowParams", "perceptual", "estimate_pair", "neighbour", "match_channels"]
 
 Quality = Literal["draft", "standard", "high"]
 
@@ -74,7 +74,7 @@ def _needs(params: FlowParams, sample: Sample) -> dict[str, tuple[Sample, Sample
     return {"image": (neighbour(sample, params.axis, -1), sample, neighbour(sample, params.axis, 1))}
 
 
-def _match_channels(image: Image, wanted: tuple[str, ...] | None) -> tuple[str, ...]:
+def match_channels(image: Image, wanted: tuple[str, ...] | None) -> tuple[str, ...]:
     if wanted is not None:
         missing = [c for c in wanted if c not in image.channels]
         if missing:
@@ -131,7 +131,7 @@ def estimate_pair(first: np.ndarray, second: np.ndarray, params: FlowParams) -> 
 
 def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     prev, cur, nxt = inputs["image"]
-    channels = _match_channels(cur, params.channels)
+    channels = match_channels(cur, params.channels)
     here = perceptual(cur, channels)
     out = np.zeros((cur.height, cur.width, 4), np.float32)
     for slot, other, name in ((0, nxt, "next"), (2, prev, "previous")):
@@ -141,7 +141,7 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
             raise OpError(f"the {name} {params.axis} is {other.width}x{other.height} but this one is "
                           f"{cur.width}x{cur.height}", field="image",
                           fix="make every frame or camera the same size, e.g. with a `resize` node")
-        _match_channels(other, channels)
+        match_channels(other, channels)
         out[:, :, slot:slot + 2] = estimate_pair(here, perceptual(other, channels), params)
     meta = {"vectors.engine": params.engine, "vectors.quality": params.quality, "vectors.axis": params.axis}
     return Image(out, FWD + BWD, meta)

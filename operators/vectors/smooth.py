@@ -40,7 +40,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
 
 from graphcore.errors import OpError
-from graphcore.image import ALPHA, Image
+from graphcore.image import Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.vectors import _filters as F

@@ -155,7 +155,7 @@ def test_fractional_time_lands_between_frames(scene):
     def ball_centroid(frame):
         return _centroid(scene.render(frame, 4, layers=True)["layers"]["ball"].pixels[..., 3])
 
-    (x0, y0), (x1, y1) = ball_centroid(10), ball_centroid(11)
+    (x0, y0), (x1, _) = ball_centroid(10), ball_centroid(11)
     xm, ym = ball_centroid(Fraction(31, 3))
     vx = scene.velocity("ball", 10)[0]
     assert x1 - x0 == pytest.approx(vx, abs=0.02)

@@ -284,7 +284,7 @@ def test_trajectory_follows_constant_acceleration_exactly(tau):
 
 def test_quadratic_motion_falls_back_to_linear_without_outer_vectors():
     # The outer directions of exact_vectors() are zero (a two-frame sequence): same as 'linear'.
-    i0, i1 = render(0), render(1)
+    i0 = render(0)
     s = Sample(Fraction(2001, 2))
     outs = {}
     for motion in ("quadratic", "linear"):

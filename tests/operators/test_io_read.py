@@ -258,7 +258,7 @@ def test_view_token_fills_the_camera_and_the_frame(tmp_path):
 
 
 def test_view_token_hash_form_and_padding_is_exact(tmp_path):
-    path = _rig(tmp_path, (1, 2), (5,))
+    _rig(tmp_path, (1, 2), (5,))
     (tmp_path / "cam7").mkdir()                        # '7' is not written as %02d writes it: ignored
     write_raw_exr(tmp_path / "cam7" / "plate.0005.exr", {"R": np.zeros((4, 6))})
     p = ReadParams(path=str(tmp_path / "cam##" / "plate.%04d.exr"), view_token="##")
