@@ -243,6 +243,14 @@ def _sum(terms: list[np.ndarray]) -> np.ndarray | int:
     return acc
 
 
+def _weighted_box(weight: np.ndarray, inv_norm: np.ndarray, a: np.ndarray, radius: int) -> np.ndarray:
+    """box_mean(weight * a) * inv_norm, in one fresh array: a weighted window mean."""
+    t = np.multiply(weight, a)
+    box_mean(t, radius, out=t)
+    t *= inv_norm
+    return t
+
+
 def _coefficients(planes: list[np.ndarray], targets: list[np.ndarray], weight: np.ndarray, radius: int,
                   eps: float) -> tuple[list[tuple[list[np.ndarray], np.ndarray]], np.ndarray]:
     """Window-averaged guided-filter coefficients ``(A_i, B)`` per target, and the support.
@@ -253,10 +261,7 @@ def _coefficients(planes: list[np.ndarray], targets: list[np.ndarray], weight: n
     np.divide(1.0, inv_w, out=inv_w)
 
     def wmean(a: np.ndarray) -> np.ndarray:
-        t = np.multiply(weight, a)
-        box_mean(t, radius, out=t)
-        t *= inv_w
-        return t
+        return _weighted_box(weight, inv_w, a, radius)
 
     def centred(a: np.ndarray, m1: np.ndarray, m2: np.ndarray) -> np.ndarray:
         t = wmean(a)
@@ -304,10 +309,7 @@ def _coefficients(planes: list[np.ndarray], targets: list[np.ndarray], weight: n
     np.divide(1.0, inv_s, out=inv_s)
 
     def spread(a: np.ndarray) -> np.ndarray:
-        t = np.multiply(w_mean, a)
-        box_mean(t, radius, out=t)
-        t *= inv_s
-        return t
+        return _weighted_box(w_mean, inv_s, a, radius)
 
     result = []
     for p in targets:
