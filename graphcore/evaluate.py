@@ -311,12 +311,6 @@ class Evaluator:
             self.warnings[(nid, message)] = None
             log.warning("node '%s': %s", nid, message)
 
-    def forget_samples(self) -> None:
-        """Drop per-sample memo tables (keys, requests, sources); the cache keeps the values."""
-        self._keys.clear()
-        self._requests.clear()
-        self._sources.clear()
-
     def sinks(self) -> list[str]:
         return sorted(nid for nid, op in self.ops.items() if op.sink)
 

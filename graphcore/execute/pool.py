@@ -91,7 +91,6 @@ class PoolExecutor:
         n_chunks = min(len(tasks), self.jobs * 4)
         bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
         chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
-        order = {id(t): i for i, t in enumerate(tasks)}
         ctx = mp.get_context("forkserver")
         collected: list[FrameResult] = []
         calls: Counter[str] = Counter()
@@ -115,7 +114,6 @@ class PoolExecutor:
             raise MidframeError(f"a worker process died ({exc}); {len(collected)} of {len(tasks)} frames "
                                 "finished. Out of memory is the usual cause: try fewer --jobs or a smaller "
                                 "--memory") from None
-        del order
         collected.sort(key=lambda r: (r.node_id, r.frame))
         report.results = collected
         report.calls = calls
