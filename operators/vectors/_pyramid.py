@@ -42,10 +42,17 @@ class Level:
 
 
 def sanitize(img: np.ndarray) -> np.ndarray:
-    """float32 (H, W, C) copy of ``img`` with NaN and infinities set to 0."""
+    """float32 (H, W, C) version of ``img`` with NaN and infinities set to 0.
+
+    A finite float32 input comes back as a view of itself, not a copy (the estimator never
+    writes into its inputs); anything else is a new array.
+    """
     a = np.asarray(img, dtype=np.float32)
     if a.ndim == 2:
         a = a[:, :, None]
+    with np.errstate(invalid="ignore", over="ignore"):
+        if np.isfinite(np.sum(a, dtype=np.float64)):        # a sum is finite iff every value is
+            return a
     return np.nan_to_num(a, nan=0.0, posinf=0.0, neginf=0.0)
 
 

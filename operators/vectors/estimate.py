@@ -421,9 +421,15 @@ def _features(img: np.ndarray, p: Preset, support: bool = False) -> _Features:
 
 
 def _finish(u: np.ndarray, v: np.ndarray, plan: _Plan) -> np.ndarray:
-    if u.shape != (plan.h, plan.w):
-        u, v = resize_flow(u, v, plan.h, plan.w)     # enlarge what a coarser level solved
-    out = np.stack([u, v], axis=-1).astype(np.float32)
+    out = cv2.merge([np.asarray(u, np.float32), np.asarray(v, np.float32)])
+    sh, sw = out.shape[:2]
+    if (sh, sw) != (plan.h, plan.w):
+        # enlarge what a coarser level solved, both components at once, lengths rescaled
+        out = cv2.resize(out, (plan.w, plan.h), interpolation=cv2.INTER_LINEAR)
+        out *= np.array([plan.w / sw, plan.h / sh], np.float32)
+    with np.errstate(invalid="ignore", over="ignore"):
+        if np.isfinite(np.sum(out, dtype=np.float64)):
+            return out
     return np.nan_to_num(out, nan=0.0, posinf=0.0, neginf=0.0)
 
 

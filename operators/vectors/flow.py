@@ -20,6 +20,8 @@ resolution).
 
 from __future__ import annotations
 
+import weakref
+from collections import OrderedDict
 from collections.abc import Mapping
 from typing import Any, Literal
 
@@ -98,6 +100,33 @@ def perceptual(image: Image, channels: tuple[str, ...]) -> np.ndarray:
     return encode(image.select(channels).pixels, ceiling=1.5)
 
 
+#: Encodings of the last few images matched, so a frame's encoding is made once for the three
+#: flow-estimate samples that use it (its own and its two neighbours'), not three times.
+_ENCODED: "OrderedDict[tuple[int, tuple[str, ...]], tuple[weakref.ref, np.ndarray]]" = OrderedDict()
+_ENCODED_KEEP = 4
+
+
+def _encoded(image: Image, channels: tuple[str, ...]) -> np.ndarray:
+    """``perceptual(image, channels)``, reused while the same pixel array is alive.
+
+    Images are immutable, so the pixel array's identity names its content: the entry holds a weak
+    reference to it and is used only while that very array still exists (an id can be reused
+    after an array is freed). The encoding is read-only for its users.
+    """
+    px = image.pixels
+    key = (id(px), channels)
+    hit = _ENCODED.get(key)
+    if hit is not None and hit[0]() is px:
+        _ENCODED.move_to_end(key)
+        return hit[1]
+    enc = perceptual(image, channels)
+    enc.flags.writeable = False
+    _ENCODED[key] = (weakref.ref(px), enc)
+    while len(_ENCODED) > _ENCODED_KEEP:
+        _ENCODED.popitem(last=False)
+    return enc
+
+
 def _dis(first: np.ndarray, second: np.ndarray, quality: str, prefilter: float) -> np.ndarray:
     import cv2
 
@@ -132,7 +161,7 @@ def estimate_pair(first: np.ndarray, second: np.ndarray, params: FlowParams) -> 
 def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     prev, cur, nxt = inputs["image"]
     channels = match_channels(cur, params.channels)
-    here = perceptual(cur, channels)
+    here = _encoded(cur, channels)
     out = np.zeros((cur.height, cur.width, 4), np.float32)
     for slot, other, name in ((0, nxt, "next"), (2, prev, "previous")):
         if other is None:
@@ -142,7 +171,7 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
                           f"{cur.width}x{cur.height}", field="image",
                           fix="make every frame or camera the same size, e.g. with a `resize` node")
         match_channels(other, channels)
-        out[:, :, slot:slot + 2] = estimate_pair(here, perceptual(other, channels), params)
+        out[:, :, slot:slot + 2] = estimate_pair(here, _encoded(other, channels), params)
     meta = {"vectors.engine": params.engine, "vectors.quality": params.quality, "vectors.axis": params.axis}
     return Image(out, FWD + BWD, meta)
 
