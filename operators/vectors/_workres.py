@@ -25,6 +25,9 @@ from typing import Literal
 import cv2
 import numpy as np
 
+from graphcore.image import Image
+from operators.vectors.channels import BWD, FWD
+
 __all__ = ["AUTO_PIXELS", "Resolution", "work_step", "reduced_size", "shrink", "shrink_vectors", "shrink_image",
            "enlarge", "enlarge_vectors", "enlarge_joint"]
 
@@ -73,13 +76,10 @@ def shrink_vectors(vectors: np.ndarray, step: int) -> np.ndarray:
     return small
 
 
-def shrink_image(image: "Image", step: int) -> "Image":
+def shrink_image(image: Image, step: int) -> Image:
     """An image of vectors (and anything else) at the reduced size, in one pass over its pixels:
     the x and y components of ``fwd`` and ``bwd`` rescaled to reduced pixels, other channels
     (confidence, occlusion as a fraction) averaged."""
-    from graphcore.image import Image
-    from operators.vectors.channels import BWD, FWD
-
     if step == 1:
         return image
     small = shrink(image.pixels, step)
