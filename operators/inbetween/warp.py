@@ -54,7 +54,7 @@ centres (the filter would repeat edge values there).
 Large plates (``vector_resolution``, default ``auto``: over 1.5 megapixels) run steps 2 to 5 on
 the vectors reduced by 2 in each direction (`operators.vectors._workres`), a quarter of the
 pixels. The splatted field is enlarged again and its motion edges are put back on full-size
-pixels by looking up, twice, the full-size path of the source pixel each output pixel's content
+pixels by looking up the full-size path of the source pixel each output pixel's content
 comes from (holes keep the filled vector); the image itself is always sampled at full size.
 Visibility keeps the reduced field's 2-pixel blocks. On the moving-layer known answer at half
 resolution this leaves errors along the layer's edges only (mean 0.003 against < 2e-5 at full);
@@ -118,8 +118,9 @@ VIS = "inbetween.vis"
 OCCLUDED_RELIABILITY = 0.5
 #: Confidence used for the importance of a pixel whose vector leaves the frame (cannot be checked).
 OUTSIDE_Z = 0.5
-#: Full-size lookups that put the motion edges back after half-resolution splatting.
-LOOKUPS = 2
+#: Full-size lookups that put the motion edges back after half-resolution splatting (a second
+#: one changed the moving-layer known answer's mean error by under 5 %).
+LOOKUPS = 1
 #: Weight of the depth-order proxy ``front`` against the confidence in the importance.
 DEPTH_WEIGHT = 0.5
 
@@ -227,7 +228,9 @@ def trajectory(vec: np.ndarray, outer: np.ndarray | None, tau: float) -> np.ndar
         return np.asarray(vec, np.float32)
     v = np.asarray(vec, np.float32)
     o = np.asarray(outer, np.float32)
-    return (np.float32(0.5) * (v - o) + np.float32(0.5 * tau) * (v + o)).astype(np.float32)
+    # (v - o) / 2 + tau (v + o) / 2 = v (1 + tau) / 2 + o (tau - 1) / 2, in one pass
+    out = cv2.addWeighted(v, 0.5 * (1.0 + tau), o, 0.5 * (tau - 1.0), 0.0, dtype=cv2.CV_32F)
+    return out.reshape(v.shape)
 
 
 def link_problems(params: WarpParams, connected: frozenset[str]) -> list[OpError]:
@@ -282,13 +285,16 @@ def _confidence(own: Image, other: Image, vec: np.ndarray, fwd_side: bool) -> tu
     return conf, occ > 0.5
 
 
-def _remap(px: np.ndarray, mx: np.ndarray, my: np.ndarray, interp: int) -> np.ndarray:
-    """OpenCV remap of any number of channels (it takes at most 4 at a time)."""
-    out = np.empty(mx.shape + (px.shape[2],), np.float32)
-    for c in range(0, px.shape[2], 4):
-        part = cv2.remap(np.ascontiguousarray(px[:, :, c:c + 4]), mx, my, interp,
+def _remap(px: np.ndarray, mx: np.ndarray, my: np.ndarray, interp: int, extra: int = 0) -> np.ndarray:
+    """OpenCV remap of any number of channels (it takes at most 4 at a time), into an array with
+    ``extra`` more channels left for the caller to fill."""
+    out = np.empty(mx.shape + (px.shape[2] + extra,), np.float32)
+    n = px.shape[2]
+    for c in range(0, n, 4):
+        e = min(c + 4, n)
+        part = cv2.remap(np.ascontiguousarray(px[:, :, c:e]), mx, my, interp,
                          borderMode=cv2.BORDER_REPLICATE)
-        out[:, :, c:c + 4] = part.reshape(mx.shape + (-1,))
+        out[:, :, c:e] = part.reshape(mx.shape + (-1,))
     return out
 
 
@@ -380,8 +386,7 @@ def warp(params: WarpParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image
         holes = R.enlarge(holes.view(np.uint8), h, w, nearest=True).view(bool)
         coverage, reliability = R.enlarge(coverage, h, w), R.enlarge(reliability, h, w)
         # Put the motion edges back on full-size pixels: each output pixel (not a hole) takes
-        # the full-size path of the source pixel the enlarged field says it came from; twice,
-        # so a pixel the first lookup moved across an edge settles on one side.
+        # the full-size path of the source pixel the enlarged field says it came from.
         for _ in range(LOOKUPS):
             look = cv2.remap(path, gx - ftau * vt[:, :, 0], gy - ftau * vt[:, :, 1],
                              cv2.INTER_NEAREST, borderMode=cv2.BORDER_REPLICATE)
@@ -389,15 +394,17 @@ def warp(params: WarpParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image
     # Phase 3: sample the neighbour where each output pixel's content was.
     mx = gx - ftau * vt[:, :, 0]
     my = gy - ftau * vt[:, :, 1]
-    warped = _remap(np.asarray(image.pixels), mx, my, _FILTERS[params.filter])
+    keep = [i for i, c in enumerate(image.channels) if c != VIS]
+    src = np.asarray(image.pixels)
+    warped = _remap(src if len(keep) == src.shape[2] else src[:, :, keep], mx, my,
+                    _FILTERS[params.filter], extra=1)
     vis = np.clip(coverage / np.float32(FULL_COVERAGE), 0.0, 1.0) * reliability
     vis[holes] = 0.0
     vis[(mx < 0) | (mx > w - 1) | (my < 0) | (my > h - 1)] = 0.0   # edge values repeated: unseen
 
-    keep = [i for i, c in enumerate(image.channels) if c != VIS]
     channels = tuple(image.channels[i] for i in keep) + (VIS,)
-    kept = warped if len(keep) == warped.shape[2] else warped[:, :, keep]
-    out = np.concatenate([kept, vis[:, :, None].astype(np.float32)], axis=2)
+    out = warped
+    out[:, :, -1] = vis
     meta = dict(image.meta)
     meta["inbetween.side"] = params.side
     meta["inbetween.holes"] = float(holes.mean())

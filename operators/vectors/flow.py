@@ -25,6 +25,7 @@ from collections import OrderedDict
 from collections.abc import Mapping
 from typing import Any, Literal
 
+import cv2
 import numpy as np
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -97,6 +98,9 @@ def perceptual(image: Image, channels: tuple[str, ...]) -> np.ndarray:
     non-finite values as 0."""
     from operators.vectors._encode import perceptual as encode
 
+    idx = [image.index(c) for c in channels]
+    if idx == list(range(idx[0], idx[0] + len(idx))):     # adjacent: a view, no extra copy
+        return encode(image.pixels[:, :, idx[0]:idx[0] + len(idx)], ceiling=1.5)
     return encode(image.select(channels).pixels, ceiling=1.5)
 
 
@@ -128,7 +132,6 @@ def _encoded(image: Image, channels: tuple[str, ...]) -> np.ndarray:
 
 
 def _dis(first: np.ndarray, second: np.ndarray, quality: str, prefilter: float) -> np.ndarray:
-    import cv2
 
     def grey(img: np.ndarray) -> np.ndarray:
         g = img.mean(axis=2) if img.shape[2] != 3 else img @ np.array([0.2126, 0.7152, 0.0722], np.float32)
@@ -162,8 +165,8 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
     prev, cur, nxt = inputs["image"]
     channels = match_channels(cur, params.channels)
     here = _encoded(cur, channels)
-    out = np.zeros((cur.height, cur.width, 4), np.float32)
-    for slot, other, name in ((0, nxt, "next"), (2, prev, "previous")):
+    planes = [np.zeros((cur.height, cur.width, 2), np.float32)] * 2   # fwd, bwd; zero without a neighbour
+    for slot, other, name in ((0, nxt, "next"), (1, prev, "previous")):
         if other is None:
             continue
         if other.size != cur.size:
@@ -171,7 +174,8 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
                           f"{cur.width}x{cur.height}", field="image",
                           fix="make every frame or camera the same size, e.g. with a `resize` node")
         match_channels(other, channels)
-        out[:, :, slot:slot + 2] = estimate_pair(here, _encoded(other, channels), params)
+        planes[slot] = estimate_pair(here, _encoded(other, channels), params)
+    out = cv2.merge([*cv2.split(planes[0]), *cv2.split(planes[1])])   # one interleaving pass
     meta = {"vectors.engine": params.engine, "vectors.quality": params.quality, "vectors.axis": params.axis}
     return Image(out, FWD + BWD, meta)
 
