@@ -17,7 +17,8 @@ distance in time and by how well it sees each pixel (Baker et al., IJCV 2011, we
 frames by time and occlusion the same way). Where both sides see a pixel poorly (both
 visibilities below ``threshold``) the result fades, over that range, to ``fallback``:
 ``dissolve`` ((1 - t) a + t b) or ``nearest`` (a for t <= 1/2, else b), and the share of such
-pixels is reported as a warning.
+pixels is reported as a warning (pixels fully transparent on both sides, A = 0, do not count:
+there is nothing to see there, as outside a matted foreground).
 """
 
 from __future__ import annotations
@@ -188,7 +189,7 @@ def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpCon
             raise OpError(f"input '{port}' has no {VIS} channel (it has {', '.join(img.channels)}), so "
                           "blend cannot tell where it is reliable", field=port,
                           fix=f"connect a `warp` node's output to '{port}' (it adds {VIS})")
-    pb = _aligned(a, "a", b, "b")
+    pb = pb_full = _aligned(a, "a", b, "b")
     vi = a.index(VIS)
     keep = [i for i in range(len(a.channels)) if i != vi]
     t = np.float32(frac)
@@ -220,7 +221,11 @@ def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpCon
     fall *= (np.float32(1) - s)[:, :, None]
     seen += fall
     out = seen
-    share = float(np.mean(best < params.threshold))
+    poor = best < params.threshold
+    if "A" in a.channels:           # nothing to see where both sides are fully transparent
+        ia = a.index("A")
+        poor &= (a.pixels[:, :, ia] != 0) | (pb_full[:, :, ia] != 0)
+    share = float(np.mean(poor))
     meta = dict(a.meta)
     meta["inbetween.fallback_share"] = share
     if share > 0:

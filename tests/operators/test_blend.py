@@ -227,6 +227,20 @@ def test_inbetween_falls_back_where_neither_side_sees_and_reports_the_share(fall
     assert len(warnings) == 1 and "16.67 %" in warnings[0] and fallback in warnings[0]
 
 
+def test_inbetween_share_leaves_out_pixels_transparent_on_both_sides():
+    # A matted foreground: outside it both sides are transparent black (A = 0) and poorly seen;
+    # the fallback changes nothing there, so those pixels are not reported.
+    vis = np.ones((3, 4), np.float32)
+    vis[0, :2] = 0.0
+    vis[2, :] = 0.0                           # row 2: transparent on both sides
+    a, b = (warped(v, vis).pixels.copy() for v in (1.0, 3.0))
+    a[2, :, :4] = b[2, :, :4] = 0.0
+    a, b = (Image(px, ("R", "G", "B", "A", VIS)) for px in (a, b))
+    out = run_op(BLEND, ib(), {"a": a, "b": b}, sample=Sample(Fraction(1, 4)), warnings=[])
+    assert out.meta["inbetween.fallback_share"] == pytest.approx(2 / 12)
+    np.testing.assert_array_equal(out.pixels[2], 0.0)
+
+
 def test_inbetween_fades_to_the_fallback_below_the_threshold():
     # max vis 0.1 with threshold 0.4: a quarter of the seen mix, three quarters of the fallback
     out = run_op(BLEND, ib(threshold=0.4), {"a": warped(1.0, 0.1), "b": warped(3.0, 0.0)},
