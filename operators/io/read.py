@@ -31,7 +31,7 @@ from graphcore.errors import OpError
 from graphcore.image import COLOR, Image
 from graphcore.registry.operator import FrameRange, OpContext, Operator
 from graphcore.sample import Sample
-from operators.io import exr, raster, sequence
+from operators.io import colorspace, exr, raster, sequence
 from operators.io import transfer as tf
 from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
                                   extension, resolved)
@@ -62,6 +62,14 @@ class ReadParams(BaseModel):
         "What to do with NaN or infinite pixel values: 'zero' replaces them with 0 and warns "
         "once per file, 'error' stops with an error naming the file, 'keep' passes them on."))
 
+    colorspace: str | None = Field(None, description=(
+        "The file's colour space by name in an OpenColorIO config (ocio_config, else the OCIO "
+        "environment variable); colour is converted from it to the config's scene_linear role. "
+        "Unset: the built-in 'transfer' decoding. Alpha and non-colour channels are never "
+        "converted."))
+    ocio_config: str | None = Field(None, description=(
+        "OpenColorIO config for 'colorspace': a config.ocio file or a built-in config such as "
+        "'ocio://cg-config-latest'. Default: the OCIO environment variable."))
     view_token: str | None = Field(None, description=(
         "For a rig whose cameras each recorded a sequence: the token in 'path' that holds the "
         "camera (view) number, the other token being the frame, e.g. path "
@@ -82,6 +90,17 @@ class ReadParams(BaseModel):
     @classmethod
     def valid_channels(cls, v: tuple[str, ...] | None) -> tuple[str, ...] | None:
         return check_channels(v)
+
+    @model_validator(mode="after")
+    def _one_colour_rule(self) -> "ReadParams":
+        if self.colorspace is not None and self.transfer != "auto":
+            raise ValueError(f"transfer {self.transfer!r} and colorspace {self.colorspace!r} both say how "
+                             "colour is encoded; set one of them (colorspace for a named OpenColorIO "
+                             "space, transfer for the built-in curves)")
+        if self.ocio_config is not None and self.colorspace is None:
+            raise ValueError("ocio_config is set but no colorspace is named; name the file's colour "
+                             "space in 'colorspace' or remove ocio_config")
+        return self
 
     @model_validator(mode="after")
     def _two_numbers(self) -> "ReadParams":
@@ -259,6 +278,14 @@ def _canonical_sample(params: ReadParams, sample: Sample) -> Sample:
 
 
 def _identity(params: ReadParams, sample: Sample) -> str:
+    file = _file_identity(params, sample)
+    if params.colorspace is None:
+        return file
+    # the conversion depends on the config's content too ($OCIO or ocio_config)
+    return f"{file}|ocio={colorspace.config_identity(params.ocio_config)}"
+
+
+def _file_identity(params: ReadParams, sample: Sample) -> str:
     try:
         path = resolved(_file_for(params, sample))
     except OpError:
@@ -323,7 +350,12 @@ def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
     path = _file_for(params, ctx.sample)
     if not os.path.isfile(path):
         raise _missing_file_error(params, path, axis_number(params.axis, ctx.sample), ctx.sample)
-    image = read_file(path, transfer=params.transfer)
+    if params.colorspace is not None:
+        # code values as stored (no built-in curve), then the named space to scene_linear
+        image = colorspace.to_working(read_file(path, transfer="linear"), params.colorspace,
+                                      params.ocio_config)
+    else:
+        image = read_file(path, transfer=params.transfer)
 
     if params.channels is not None:
         missing = [c for c in params.channels if c not in image.channels]

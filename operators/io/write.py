@@ -24,12 +24,12 @@ import secrets
 from collections.abc import Mapping, Sequence
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, field_validator
+from pydantic import BaseModel, ConfigDict, Field, field_validator, model_validator
 
 from graphcore.errors import OpError
 from graphcore.image import Image
 from graphcore.registry.operator import OpContext, Operator, Port
-from operators.io import exr, raster, sequence
+from operators.io import colorspace, exr, raster, sequence
 from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
                                   extension, resolved)
 
@@ -68,6 +68,25 @@ class WriteParams(BaseModel):
         "PNG/TIFF/JPEG, where one name writes grey and four names write RGB + alpha."))
     axis: Literal["frame", "view"] = Field("frame", description=(
         "Which sample coordinate numbers the files: 'frame' (time) or 'view' (camera)."))
+    colorspace: str | None = Field(None, description=(
+        "Colour space to write in, by name in an OpenColorIO config (ocio_config, else the OCIO "
+        "environment variable): colour is converted to it from the config's scene_linear role, "
+        "and 8/16-bit files then store those values without the built-in curve. Unset: EXR "
+        "holds linear light, other formats the built-in 'transfer'."))
+    ocio_config: str | None = Field(None, description=(
+        "OpenColorIO config for 'colorspace': a config.ocio file or a built-in config such as "
+        "'ocio://cg-config-latest'. Default: the OCIO environment variable."))
+
+    @model_validator(mode="after")
+    def _one_colour_rule(self) -> "WriteParams":
+        if self.colorspace is not None and self.transfer != "auto":
+            raise ValueError(f"transfer {self.transfer!r} and colorspace {self.colorspace!r} both say how "
+                             "colour is encoded; set one of them (colorspace for a named OpenColorIO "
+                             "space, transfer for the built-in curves)")
+        if self.ocio_config is not None and self.colorspace is None:
+            raise ValueError("ocio_config is set but no colorspace is named; name the colour space to "
+                             "write in 'colorspace' or remove ocio_config")
+        return self
 
     @field_validator("path")
     @classmethod
@@ -184,12 +203,15 @@ def _compute(params: WriteParams, inputs: Mapping[str, Any], ctx: OpContext) -> 
         raise OpError("JPEG files hold 8 bits per sample", file=target, field="bit_depth",
                       fix="set bit_depth to 8, or write PNG or TIFF for 16 bits")
 
+    transfer = "srgb" if params.transfer == "auto" else params.transfer
+    if params.colorspace is not None:
+        out = colorspace.from_working(out, params.colorspace, params.ocio_config)
+        transfer = "linear"          # the values are already in the named space
     try:
         os.makedirs(os.path.dirname(os.path.abspath(target)), exist_ok=True)
         if is_exr:
             atomic_write(target, lambda tmp: _write_exr(params, out, tmp, target, ctx))
         else:
-            transfer = "srgb" if params.transfer == "auto" else params.transfer
             atomic_write(target, lambda tmp: raster.write_raster(
                 tmp, out, bit_depth=params.bit_depth, transfer=transfer,
                 quality=params.quality, channels=params.channels))
