@@ -150,3 +150,47 @@ def truncated_copy(src, dst, keep: float = 0.5) -> Path:
     data = Path(src).read_bytes()
     Path(dst).write_bytes(data[: int(len(data) * keep)])
     return Path(dst)
+
+
+# -- rigs ------------------------------------------------------------------------------------------
+def texture(h: int, w: int, seed: int = 0, channels: int = 3) -> np.ndarray:
+    """Seeded multi-scale texture, shape (h, w, channels), float32 in about 0.05..0.95.
+
+    Noise blurred at several scales and summed: corners and blobs at every size, as feature
+    detectors and colour fits need (invented data for known-answer tests).
+    """
+    import cv2
+
+    rng = np.random.default_rng(seed)
+    out = np.zeros((h, w, channels), np.float32)
+    for sigma, amp in ((1.0, 0.35), (3.0, 0.35), (9.0, 0.3)):
+        layer = cv2.GaussianBlur(rng.random((h, w, channels), dtype=np.float32), (0, 0), sigma)
+        layer = layer.reshape(h, w, channels)
+        layer -= layer.mean()
+        out += amp * layer / (layer.std() + 1e-9)
+    return np.clip(0.5 + 0.15 * out, 0.05, 0.95).astype(np.float32)
+
+
+def rig_context(view: int, cameras: int, warnings: list[str] | None = None) -> OpContext:
+    """An ``OpContext`` at camera ``view`` of a rig of stills with cameras ``1..cameras`` (the
+    input ranges an operator declaring ``needs_ranges`` gets from the engine)."""
+    from graphcore.registry.operator import FrameRange, InputRange
+
+    ranges = {"image": InputRange(None, FrameRange(1, cameras))}
+    return op_context(Sample(0, view), warnings, input_ranges=ranges)
+
+
+def run_rig_op(op: Operator, params: Any, cameras: Mapping[int, Image], view: int,
+               warnings: list[str] | None = None, **other_ports: Mapping[int, Image]) -> Image:
+    """Run a rig operator at ``view`` the way the engine does: ask ``op.needs`` which cameras it
+    wants and hand it those images (``other_ports`` map a port to images per camera)."""
+    ctx = rig_context(view, len(cameras), warnings)
+    ranges = dict(ctx.input_ranges)
+    for port in other_ports:
+        ranges[port] = ranges["image"]
+    wanted = op.needs(params, ctx.sample, ranges)
+    inputs: dict[str, Any] = {}
+    for port, samples in wanted.items():
+        source = cameras if port == "image" else other_ports[port]
+        inputs[port] = tuple(source[int(s.view)] for s in samples)
+    return run_op(op, params, inputs, ctx=ctx)
