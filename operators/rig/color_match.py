@@ -32,6 +32,8 @@ robust fit: iteratively reweighted least squares with Huber and then Tukey weigh
 Welsch 1977; Beaton and Tukey 1974), scale from the median absolute residual. An optional
 ``matte`` input restricts the fit to where the matte is above zero in both cameras (weights are
 the product of the two mattes): for example a matte of a grey card or of the static set.
+Pixels whose colour is exactly 0 in either camera (the empty border ``align-views`` leaves where a
+camera's frame does not reach, also without an alpha channel) take no part.
 
 Report. The fitted transform is returned in the output's metadata under ``color-match.*``
 (``matrix``: 3x3 rows R', G', B' over input R, G, B; ``offset``; ``inliers``: the share of compared
@@ -203,7 +205,9 @@ def fit_color(image: Image, reference: Image, model: str = "gain-offset", *, fit
                           f"{', '.join(reference.channels)})", field="image",
                           file=source_file(reference), fix="give every camera the same channels")
     h, w = image.height, image.width
-    wplane = np.ones((h, w), np.float32) if weight is None else np.asarray(weight, np.float32)
+    wplane = np.ones((h, w), np.float32) if weight is None else np.array(weight, np.float32)
+    for img in (image, reference):            # no data: the empty border align-views leaves
+        wplane[np.all(img.select(names).pixels == 0, axis=2)] = 0.0
     stack = np.dstack([image.select(names).pixels, _alpha(image),
                        reference.select(names).pixels, _alpha(reference), wplane])
     g = _grid(stack, fit_size)
