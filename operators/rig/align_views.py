@@ -60,7 +60,9 @@ Lowe's ratio test (``ratio``).
 Every channel is warped with the same transform (colour, alpha, mattes, every layer), with the
 chosen ``filter``; pixels that come from outside the camera's frame are 0 in every channel
 (transparent; ``border: edge`` repeats the edge instead). Vector layers are resampled but their
-values are not rotated: estimate vectors after this node.
+values are not rotated: estimate vectors after this node. Non-finite pixels (``read`` replaces
+them with 0 unless told to keep them) count as 0 when features are found, and are carried by the
+warp like any other value (a NaN spreads to the output pixels that interpolate it).
 
 Report. The output's metadata holds ``align-views.*`` (``matrix``: 3x3, this camera's pixels to
 the output's; ``matches``, ``inliers``; ``residual_rms`` and ``residual_median``: distance in

@@ -232,3 +232,18 @@ def test_point_outside_the_frame_and_sizes_that_differ_are_errors():
     with pytest.raises(OpError) as err:
         run_rig_op(ALIGN_VIEWS, AlignViewsParams(), small, view=1)
     assert "320x200" in str(err.value) and "resize" in err.value.fix
+
+
+def test_nonfinite_pixels_do_not_upset_the_fit():
+    """A few NaN and infinite pixels in the camera: the features ignore them (as 0) and the fit is
+    as good as without them; the NaNs are carried to where the warp takes them."""
+    ref = texture(H, W, seed=30)
+    known = similarity(1.0, 1.0, (4.0, -3.0))
+    moved = warp(ref, known)
+    moved[100:103, 150:153] = np.nan
+    moved[20, 40, 1] = np.inf
+    out = run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold"), three_cameras(moved, ref), view=1)
+    fitted = np.array(out.meta["align-views.matrix"])
+    err = np.hypot(*(apply(fitted, apply(known, PROBES)) - PROBES).T).max()
+    assert err < 0.5, err
+    assert np.isnan(out.pixels).any() and np.isnan(out.pixels).sum() < 100
