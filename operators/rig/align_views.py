@@ -24,11 +24,10 @@ farther keeps its parallax relative to it.
 
 Measured on the demo scene (five cameras with aim, roll, exposure and white-balance errors,
 layers at five depths; tests/cli/test_cli_rig_clean.py): at 320x180 ``rigid`` cut the shake
-from 2.23 px to 0.54 px, ``similarity`` to 0.64 px, and ``homography`` made it worse (2.47 px,
-one plane locked, the rest sliding). In one development run at 480x270 (five probe points)
-``rigid`` went from 3.5 px to 0.43 px while ``similarity`` reached 3.9 px, worse than before:
-RANSAC's consensus set mixed layers at neighbouring depths and read their different parallax as
-a scale of 2-4 %. Hence ``rigid`` by default: rigs
+from 2.23 px to 0.36 px, ``similarity`` only to 1.06 px and ``homography`` to 2.00 px (one plane
+locked, the rest sliding): RANSAC's consensus set mixes layers at neighbouring depths and reads
+their different parallax as a scale of a few percent (1.5-3 % in a development run at 480x270,
+where the perfect rig has none). Hence ``rigid`` by default: rigs
 whose cameras share one focal length need no scale, and a wrong scale makes a sweep breathe;
 use ``similarity`` when focal lengths differ and ``homography`` for a planar scene or cameras
 that only turn.
@@ -193,17 +192,26 @@ class ViewFit:
 
 
 def _grey8(image: Image) -> np.ndarray:
-    names = [c for c in COLOR if c in image.channels] or [image.channels[0]]
-    px = perceptual(image.select(names).pixels, ceiling=1.0)
-    if px.shape[2] == 3:
-        grey = px @ np.array([0.2126, 0.7152, 0.0722], np.float32)   # ITU-R BT.709 luma weights
+    """8-bit grey for the feature detector: the linear luma (ITU-R BT.709 weights), sRGB-encoded,
+    stretched per camera."""
+    idx = [image.index(c) for c in COLOR if c in image.channels] or [0]
+    px = image.pixels
+    if len(idx) == 3:
+        w = (0.2126, 0.7152, 0.0722)
+        luma = px[:, :, idx[0]] * np.float32(w[0])
+        luma += px[:, :, idx[1]] * np.float32(w[1])
+        luma += px[:, :, idx[2]] * np.float32(w[2])
     else:
-        grey = px.mean(axis=2)
-    # stretch the 0.5th..99.5th percentiles over 0..255: dim or flat plates still give features,
-    # and each camera's own exposure no longer matters to the detector
-    lo, hi = np.percentile(grey, (0.5, 99.5))
-    scale = 255.0 / (hi - lo) if hi > lo else 0.0
-    return np.clip((grey - lo) * scale + 0.5, 0, 255).astype(np.uint8)
+        luma = np.mean(px[:, :, idx], axis=2, dtype=np.float32)
+    grey = perceptual(luma, ceiling=1.0)
+    # stretch the 0.5th..99.5th percentiles (of every 7th pixel) over 0..255: dim or flat plates
+    # still give features, and each camera's own exposure no longer matters to the detector
+    lo, hi = np.percentile(grey.ravel()[::7], (0.5, 99.5))
+    scale = np.float32(255.0 / (hi - lo) if hi > lo else 0.0)
+    grey -= np.float32(lo)
+    grey *= scale
+    grey += np.float32(0.5)
+    return np.clip(grey, 0, 255).astype(np.uint8)
 
 
 def _detector(kind: str, n: int):
@@ -243,8 +251,22 @@ def _weighted_median(values: np.ndarray, weights: np.ndarray) -> float:
     return float(values[order][np.searchsorted(cum, 0.5 * cum[-1])])
 
 
+Features = tuple[np.ndarray, "np.ndarray | None"]
+
+
+def camera_features(image: Image, params: AlignViewsParams,
+                    memo: dict[int, Features] | None = None) -> Features:
+    """Keypoint positions (K, 2) and descriptors of ``image`` (``memo``: per call, by object)."""
+    if memo is not None and id(image) in memo:
+        return memo[id(image)]
+    found = _features(_grey8(image), params.features, params.max_features)
+    if memo is not None:
+        memo[id(image)] = found
+    return found
+
+
 def measure_view(image: Image, reference: Image, params: AlignViewsParams,
-                 point: tuple[float, float]) -> ViewFit:
+                 point: tuple[float, float], memo: dict[int, Features] | None = None) -> ViewFit:
     """Fit the transform taking ``image``'s pixels onto ``reference``'s, re-centred on ``point``.
 
     Two steps. (1) The model (similarity or homography) is fitted by RANSAC to every ratio-test
@@ -253,7 +275,8 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     re-centred on the point of interest: the shift left between the reference's features and the
     mapped features of this camera near the point (within ``radius``, weighted by
     ``(1 - (d / radius)^2)^2`` of their distance ``d`` to the point; the weighted median per
-    axis, refined to the weighted mean of the matches within ``ransac_threshold`` of it) is added, so the content at the point, at whatever depth, lands where the reference sees it.
+    axis, refined to the weighted mean of the matches within ``ransac_threshold`` of it) is added,
+    so the content at the point, at whatever depth, lands where the reference sees it.
 
     Parameters
     ----------
@@ -261,6 +284,8 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     params : AlignViewsParams
     point : (float, float)
         Point of interest in ``reference``'s pixels.
+    memo : dict, optional
+        Features already found, by image object (the reference's are found once per call).
 
     Raises
     ------
@@ -268,8 +293,8 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
         Fewer than ``params.min_inliers`` matches agree with one transform, or fewer than
         ``params.min_point_matches`` near the point agree with its shift.
     """
-    pa, da = _features(_grey8(image), params.features, params.max_features)
-    pb, db = _features(_grey8(reference), params.features, params.max_features)
+    pa, da = camera_features(image, params, memo)
+    pb, db = camera_features(reference, params, memo)
     pairs = _match(da, db, params.features, params.ratio)
     src, dst = pa[pairs[:, 0]], pb[pairs[:, 1]]
     n = len(src)
@@ -394,8 +419,9 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     ref = reference_view(params.reference, views)
     require_same_size(image, reference, "the reference camera")
     poi = _point(params, reference)
+    memo: dict[int, Features] = {}
     try:
-        fit = measure_view(image, reference, params, poi)
+        fit = measure_view(image, reference, params, poi, memo)
     except TooFewMatches as exc:
         if params.on_failure == "error":
             raise _failure(params, image, view, ref, exc) from None
@@ -408,7 +434,7 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     matrix = fit.matrix
     slope = None
     if params.path == "line":
-        slope = _line_slope(params, images[2:], views, ref, reference, poi, view, found)
+        slope = _line_slope(params, images[2:], views, ref, reference, poi, view, found, memo)
         target = np.array(poi) + slope * (view - ref)
         shift = np.eye(3)
         shift[:2, 2] = target - np.array(poi)
@@ -432,7 +458,8 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
 
 
 def _line_slope(params: AlignViewsParams, cameras: tuple[Image, ...], views, ref: int, reference: Image,
-                poi: tuple[float, float], view: int, found_here: np.ndarray) -> np.ndarray:
+                poi: tuple[float, float], view: int, found_here: np.ndarray,
+                memo: dict[int, Features]) -> np.ndarray:
     """Per-camera step of the point of interest along the least-squares line through the
     reference camera's point (cameras that cannot be aligned are left out when on_failure is
     'identity')."""
@@ -445,7 +472,7 @@ def _line_slope(params: AlignViewsParams, cameras: tuple[Image, ...], views, ref
         else:
             require_same_size(cam, reference, "the reference camera")
             try:
-                fit = measure_view(cam, reference, params, poi)
+                fit = measure_view(cam, reference, params, poi, memo)
             except TooFewMatches as exc:
                 if params.on_failure == "error":
                     raise _failure(params, cam, v, ref, exc) from None

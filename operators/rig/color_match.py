@@ -156,17 +156,19 @@ def _colour_planes(image: Image, model: str) -> tuple[str, ...]:
     return names
 
 
-def _grid(planes: np.ndarray, fit_size: int) -> np.ndarray:
-    """Area average of (H, W, C) planes to at most ``fit_size`` on the longer side (float64)."""
-    h, w = planes.shape[:2]
+def _grid(planes: list[np.ndarray], fit_size: int) -> np.ndarray:
+    """(N, C) float64: the (H, W) planes area-averaged to at most ``fit_size`` pixels on the
+    longer side, one column per plane, one row per grid pixel."""
+    h, w = planes[0].shape[:2]
     f = min(1.0, fit_size / max(h, w))
-    x = np.ascontiguousarray(planes, dtype=np.float32)
-    if f < 1.0:
-        size = (max(1, round(w * f)), max(1, round(h * f)))
-        chunks = [cv2.resize(x[:, :, i:i + 4], size, interpolation=cv2.INTER_AREA)
-                  for i in range(0, x.shape[2], 4)]
-        x = np.concatenate([c.reshape(size[1], size[0], -1) for c in chunks], axis=2)
-    return x.reshape(-1, x.shape[2]).astype(np.float64)
+    size = (max(1, round(w * f)), max(1, round(h * f)))
+    cols = []
+    for p in planes:
+        p = np.asarray(p, dtype=np.float32)
+        if f < 1.0:
+            p = cv2.resize(p, size, interpolation=cv2.INTER_AREA)
+        cols.append(p.reshape(-1))
+    return np.column_stack(cols).astype(np.float64)
 
 
 def _alpha(image: Image) -> np.ndarray:
@@ -206,11 +208,14 @@ def fit_color(image: Image, reference: Image, model: str = "gain-offset", *, fit
                           file=source_file(reference), fix="give every camera the same channels")
     h, w = image.height, image.width
     wplane = np.ones((h, w), np.float32) if weight is None else np.array(weight, np.float32)
-    for img in (image, reference):            # no data: the empty border align-views leaves
-        wplane[np.all(img.select(names).pixels == 0, axis=2)] = 0.0
-    stack = np.dstack([image.select(names).pixels, _alpha(image),
-                       reference.select(names).pixels, _alpha(reference), wplane])
-    g = _grid(stack, fit_size)
+    cur_planes = [image.channel(n) for n in names]
+    ref_planes = [reference.channel(n) for n in names]
+    for planes in (cur_planes, ref_planes):   # no data: the empty border align-views leaves
+        empty = planes[0] == 0
+        for p in planes[1:]:
+            empty &= p == 0
+        wplane[empty] = 0.0
+    g = _grid([*cur_planes, _alpha(image), *ref_planes, _alpha(reference), wplane], fit_size)
     k = len(names)
     cur, a_cur, ref, a_ref, prior = g[:, :k], g[:, k], g[:, k + 1:2 * k + 1], g[:, 2 * k + 1], g[:, -1]
     finite = np.isfinite(g).all(axis=1)
@@ -258,14 +263,18 @@ def apply_color(image: Image, fit: ColorFit) -> np.ndarray:
     names = [c for c in COLOR if c in image.channels]
     idx = [COLOR.index(n) for n in names]
     px = np.array(image.pixels, dtype=np.float32)
-    colour = image.select(names).pixels
-    m = fit.matrix[np.ix_(idx, idx)].astype(np.float32)
+    src = [image.channel(n) for n in names]
+    alpha = _alpha(image) if np.any(fit.offset != 0) else None
     with np.errstate(invalid="ignore", over="ignore"):
-        out = colour @ m.T
-    if np.any(fit.offset != 0):
-        out += _alpha(image)[:, :, None] * fit.offset[idx].astype(np.float32)
-    for j, n in enumerate(names):
-        px[:, :, image.index(n)] = out[:, :, j]
+        for i, n in zip(idx, names):
+            row = fit.matrix[i]
+            plane = px[:, :, image.index(n)]
+            plane[...] = 0.0
+            for j, other in zip(idx, src):    # zero terms skipped: a NaN stays in its channel
+                if row[j] != 0:
+                    plane += np.float32(row[j]) * other
+            if alpha is not None:
+                plane += np.float32(fit.offset[i]) * alpha
     return px
 
 

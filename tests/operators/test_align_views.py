@@ -72,8 +72,8 @@ def fitted_error(known: np.ndarray, **params) -> tuple[float, Image]:
 # -- known answers ------------------------------------------------------------------------------------
 def test_similarity_recovered():
     """Rotation 2 degrees, scale 1.03, shift (6, -4) px. Measured: the fitted transform maps the
-    probe points within 0.05 px of where the inverse of the known one does (rotation -2.005
-    degrees, scale 0.97085 against 1 / 1.03 = 0.97087; 1929 of 1945 matches inliers, RANSAC
+    probe points within 0.06 px of where the inverse of the known one does (rotation -2.015
+    degrees, scale 0.97090 against 1 / 1.03 = 0.97087; 1900 of 1913 matches inliers, RANSAC
     residual 0.84 px RMS, the features' own pixel precision). Asserted: 0.5 px, rotation and scale
     to 0.05 degrees and 0.002."""
     err, out = fitted_error(similarity(2.0, 1.03, (6.0, -4.0)), model="similarity")
@@ -86,7 +86,7 @@ def test_similarity_recovered():
 
 def test_rigid_recovered():
     """Rotation -1.5 degrees, shift (3.5, 2.25) px (the default model). Measured: 0.08 px,
-    rotation 1.492 degrees."""
+    rotation 1.485 degrees."""
     err, out = fitted_error(similarity(-1.5, 1.0, (3.5, 2.25)))
     assert err < 0.5, err
     assert out.meta["align-views.scale"] == 1.0
@@ -94,8 +94,8 @@ def test_rigid_recovered():
 
 
 def test_homography_recovered():
-    """A mild perspective (a plane seen from a little to the side). Measured: within 0.43 px at
-    the probe points (the corners are where a homography's error grows)."""
+    """A mild perspective (a plane seen from a little to the side). Measured: within 0.16 px at
+    the probe points (the corners, where a homography's error grows, are among them)."""
     known = similarity(1.0, 1.02, (-3.0, 2.0)) @ np.array([[1.0, 0.01, 0.0], [-0.005, 1.0, 0.0],
                                                             [4e-5, -3e-5, 1.0]])
     err, out = fitted_error(known, model="homography")
@@ -170,8 +170,8 @@ def test_line_keeps_the_travel_and_hold_removes_it(path):
     through camera 3's point is sum_k (k-3) x_k / sum_k (k-3)^2 with x_k = 6 (k-3) + jitter_k:
     x: (-11.2, -7.5, 0, 7.1, 11.6), so the step is (22.4 + 7.5 + 7.1 + 23.2) / 10 = 6.02 px; y:
     (-1.2, 0.6, 0, 1.4, -0.9), so (2.4 - 0.6 + 1.4 - 1.8) / 10 = 0.14 px. 'line' puts camera k's
-    point at centre + step (k - 3); 'hold' at the centre. Measured: within 0.15 px of those
-    (asserted 0.3 px), and the step within 0.01 px (asserted 0.05)."""
+    point at centre + step (k - 3); 'hold' at the centre. Measured: within 0.16 px of those
+    (asserted 0.3 px), and the step (6.011, 0.153) px (asserted within 0.05)."""
     cams = translating_rig({k: 6.0 for k in range(1, 6)}, JITTER)
     step = np.array([6.02, 0.14])
     for k in (1, 2, 4, 5):

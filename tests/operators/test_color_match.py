@@ -201,6 +201,7 @@ def test_nonfinite_pixels_take_no_part_and_stay():
     g, o = diag_and_offset(out)
     np.testing.assert_allclose(g, GAIN, atol=1e-3)
     assert np.isnan(out.pixels[5, 5]).all() and np.isinf(out.pixels[6, 6, 1])
+    assert np.isfinite(out.pixels[6, 6, [0, 2]]).all()      # gains keep a bad value in its channel
 
 
 def test_not_a_rig_and_a_reference_outside_it_are_errors():
