@@ -64,11 +64,13 @@ them with 0 unless told to keep them) count as 0 when features are found, and ar
 warp like any other value (a NaN spreads to the output pixels that interpolate it).
 
 Report. The output's metadata holds ``align-views.*`` (``matrix``: 3x3, this camera's pixels to
-the output's; ``matches``, ``inliers``; ``residual_rms`` and ``residual_median``: distance in
-pixels between the reference's features and this camera's inlier features after the transform;
-``rotation_deg`` and ``scale`` of the transform; ``point`` and ``point_found``: the point of
-interest and where this camera saw it; ``shift``: how far the transform moved it), and the same
-record as the EXR header attribute ``midframe.align-views`` of written files.
+the output's; ``matches``, ``inliers``, ``point_matches``; ``residual_rms`` and
+``residual_median``: distance in pixels between the reference's features and this camera's
+RANSAC inliers mapped by the fitted model, before the re-centring; ``rotation_deg`` and
+``scale`` of the transform; ``point`` and ``point_found``: the point of interest and where this
+camera saw it; ``shift``: how far the transform moved it; ``path_step``: the fitted line's step
+per camera), and the same record as the EXR header attribute ``midframe.align-views`` of written
+files. A camera passed through unaligned reports ``aligned: false``.
 
 Too few matches. When fewer than ``min_inliers`` matches agree with one transform, or fewer than
 ``min_point_matches`` near the point of interest agree on where it is (a textureless or constant
@@ -126,9 +128,9 @@ class AlignViewsParams(BaseModel):
                             "that best fits where the cameras see it (keeps a rig's travel, removes "
                             "the shake); 'hold' keeps it where the reference camera sees it.")
     model: Literal["rigid", "similarity", "homography"] = Field(
-        "rigid", description="'rigid': rotation and shift (roll and aim; cameras with one "
-                                  "focal length); 'similarity': also a uniform scale (focal length "
-                                  "differences); 'homography': a full projective transform.")
+        "rigid", description="'rigid': rotation and shift (roll and aim; cameras with one focal "
+                             "length); 'similarity': also a uniform scale (focal length "
+                             "differences); 'homography': a full projective transform.")
     features: Literal["orb", "sift"] = Field(
         "orb", description="Feature detector and descriptor: ORB (Rublee et al. 2011) or SIFT "
                            "(Lowe 2004).")
@@ -159,9 +161,9 @@ class AlignViewsParams(BaseModel):
 class TooFewMatches(Exception):
     """Raised by :func:`measure_view` when the transform is not supported by enough matches."""
 
-    def __init__(self, message: str, matches: int, inliers: int):
+    def __init__(self, message: str, matches: int, inliers: int, field: str = "min_inliers"):
         super().__init__(message)
-        self.matches, self.inliers = matches, inliers
+        self.matches, self.inliers, self.field = matches, inliers, field
 
 
 @dataclass(frozen=True)
@@ -173,7 +175,7 @@ class ViewFit:
     matrix : ndarray, shape (3, 3), float64
         Maps this camera's pixel coordinates (x, y, 1) to the reference's.
     matches : int
-        Ratio-test matches near the point of interest.
+        Feature matches that passed the ratio test.
     inliers : int
         Matches that agree with ``matrix`` (RANSAC).
     residual_rms, residual_median : float
@@ -326,7 +328,7 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     w = (1.0 - (dist[near] / reach) ** 2) ** 2
     if len(left) == 0:
         raise TooFewMatches(f"no feature matches within {reach:.0f} px of the point of interest "
-                            f"({n} elsewhere)", n, int(inl.sum()))
+                            f"({n} elsewhere)", n, int(inl.sum()), "min_point_matches")
     shift = np.array([_weighted_median(left[:, 0], w), _weighted_median(left[:, 1], w)])
     close = np.hypot(*(left - shift).T) <= params.ransac_threshold
     agree = int(close.sum())
@@ -334,7 +336,8 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
         shift = (w[close, None] * left[close]).sum(axis=0) / w[close].sum()
     if agree < params.min_point_matches:
         raise TooFewMatches(f"only {agree} feature matches within {reach:.0f} px of the point of "
-                            f"interest agree on where it is ({len(left)} near it)", n, int(inl.sum()))
+                            f"interest agree on where it is ({len(left)} near it)", n, int(inl.sum()),
+                            "min_point_matches")
     recentre = np.eye(3)
     recentre[:2, 2] = shift
     return ViewFit(recentre @ matrix.astype(np.float64), n, int(inl.sum()),
@@ -402,8 +405,9 @@ def _needs(params: AlignViewsParams, sample: Sample,
 
 
 def _failure(params: AlignViewsParams, image: Image, view: int, ref: int, exc: TooFewMatches) -> OpError:
+    needed = getattr(params, exc.field)
     return OpError(f"cannot align camera {view} to the reference camera {ref}: {exc} (at least "
-                   f"{params.min_inliers} needed)", field="min_inliers", file=source_file(image),
+                   f"{needed} needed)", field=exc.field, file=source_file(image),
                    fix="give a 'point' on textured content both cameras see, raise 'radius', try "
                        "features 'sift', lower 'min_inliers', or set on_failure "
                        "'identity' to pass such cameras through unaligned")

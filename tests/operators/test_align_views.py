@@ -247,3 +247,16 @@ def test_nonfinite_pixels_do_not_upset_the_fit():
     err = np.hypot(*(apply(fitted, apply(known, PROBES)) - PROBES).T).max()
     assert err < 0.5, err
     assert np.isnan(out.pixels).any() and np.isnan(out.pixels).sum() < 100
+
+
+def test_a_point_of_interest_on_blank_content_is_a_clear_error():
+    """Texture everywhere but a flat square round the point of interest: the camera's transform is
+    found, but nothing near the point says where it is. The error names min_point_matches."""
+    ref = texture(H, W, seed=31)
+    ref[70:170, 110:210] = 0.4
+    cams = three_cameras(warp(ref, similarity(1.0, 1.0, (3.0, 2.0))), ref)
+    with pytest.raises(OpError) as err:
+        run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold", radius=0.15), cams, view=1)
+    assert err.value.field == "min_point_matches" and "point of interest" in str(err.value)
+    out = run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold", radius=0.5), cams, view=1)
+    assert out.meta["align-views.aligned"] is True
