@@ -18,7 +18,13 @@ from graphcore.registry.operator import FrameRange, InputRange
 from graphcore.sample import Sample
 
 __all__ = ["rig_views", "reference_view", "view_number", "require_same_size", "with_report",
-           "source_file"]
+           "source_file", "fit_sample", "FIT_FRAME_DOC"]
+
+#: The description of the ``fit_frame`` param both operators share.
+FIT_FRAME_DOC = ("The frame the cameras are compared at. Default: each frame its own. For a rig "
+                 "whose cameras recorded sequences, give one frame (still, well lit, nothing "
+                 "crossing the cameras) so every frame gets the same transform and no flicker or "
+                 "shake is added over time.")
 
 
 def rig_views(ranges: Mapping[str, InputRange], port: str = "image") -> FrameRange:
@@ -77,3 +83,18 @@ def with_report(meta: Mapping[str, Any], op_name: str, report: Mapping[str, Any]
     attrs[f"midframe.{op_name}"] = json.dumps(report, sort_keys=True)
     out["exr.attributes"] = attrs
     return out
+
+
+def fit_sample(fit_frame: int | None, sample: Sample, ranges: Mapping[str, InputRange],
+               port: str = "image") -> Sample:
+    """The sample the fit is made at: ``sample`` itself, or the same view at ``fit_frame``
+    (OpError when the input has no such frame)."""
+    if fit_frame is None:
+        return sample
+    rng = ranges.get(port)
+    frames = rng.frames if rng is not None else None
+    if frames is not None and fit_frame not in frames:
+        raise OpError(f"fit_frame {fit_frame} is not a frame of the input (frames {frames})",
+                      field="fit_frame", fix=f"give a frame in {frames}, or leave 'fit_frame' out to "
+                                             "fit every frame on its own")
+    return sample.at_frame(fit_frame)

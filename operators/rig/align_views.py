@@ -56,6 +56,11 @@ Bradski, G., "ORB: an efficient alternative to SIFT or SURF", ICCV 2011) or ``si
 perceptual (sRGB-encoded) luma stretched to 8 bits per camera, matched by brute force with
 Lowe's ratio test (``ratio``).
 
+Time. At each frame the cameras are compared at that frame, unless ``fit_frame`` names one frame
+to compare them at; a rig whose cameras recorded sequences should give one (the cameras of a rig
+do not move against each other during a take, and fitting every frame on its own would add a
+little shake over time). The transform found there then applies to every frame.
+
 Every channel is warped with the same transform (colour, alpha, mattes, every layer), with the
 chosen ``filter``; pixels that come from outside the camera's frame are 0 in every channel
 (transparent; ``border: edge`` repeats the edge instead). Vector layers are resampled but their
@@ -96,8 +101,8 @@ from graphcore.errors import OpError
 from graphcore.image import COLOR, Image
 from graphcore.registry.operator import InputRange, OpContext, Operator, Port
 from graphcore.sample import Sample
-from operators.rig._common import (reference_view, require_same_size, rig_views, source_file,
-                                   view_number, with_report)
+from operators.rig._common import (FIT_FRAME_DOC, fit_sample, reference_view, require_same_size,
+                                   rig_views, source_file, view_number, with_report)
 from operators.vectors._encode import perceptual
 
 __all__ = ["ALIGN_VIEWS", "AlignViewsParams", "ViewFit", "measure_view", "warp_image", "TooFewMatches"]
@@ -147,6 +152,7 @@ class AlignViewsParams(BaseModel):
     min_point_matches: int = Field(
         5, ge=1, le=100000, description="Fewest matches near the point of interest that must agree "
                                         "on where it is.")
+    fit_frame: int | None = Field(None, description=FIT_FRAME_DOC)
     on_failure: Literal["error", "identity"] = Field(
         "error", description="When a camera has too few matches: 'error' stops with an error; "
                              "'identity' passes it through unaligned with a warning.")
@@ -399,9 +405,10 @@ def _needs(params: AlignViewsParams, sample: Sample,
     ref = reference_view(params.reference, views)
     if sample.view == ref:
         return {"image": (sample,)}
+    here = fit_sample(params.fit_frame, sample, ranges)
     if params.path == "hold":
-        return {"image": (sample, sample.at_view(ref))}
-    return {"image": (sample, sample.at_view(ref), *(sample.at_view(v) for v in views))}
+        return {"image": (sample, here, here.at_view(ref))}
+    return {"image": (sample, here, here.at_view(ref), *(here.at_view(v) for v in views))}
 
 
 def _failure(params: AlignViewsParams, image: Image, view: int, ref: int, exc: TooFewMatches) -> OpError:
@@ -418,14 +425,16 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     view = view_number(ctx.sample, "align-views")
     if len(images) == 1:
         return images[0]                              # the reference camera: unchanged, bit for bit
-    image, reference = images[0], images[1]
+    image, fit_image, reference = images[0], images[1], images[2]
     views = rig_views(ctx.input_ranges)
     ref = reference_view(params.reference, views)
-    require_same_size(image, reference, "the reference camera")
+    require_same_size(fit_image, reference, "the reference camera")
+    if fit_image is not image:
+        require_same_size(image, fit_image, f"the same camera at fit_frame {params.fit_frame}")
     poi = _point(params, reference)
     memo: dict[int, Features] = {}
     try:
-        fit = measure_view(image, reference, params, poi, memo)
+        fit = measure_view(fit_image, reference, params, poi, memo)
     except TooFewMatches as exc:
         if params.on_failure == "error":
             raise _failure(params, image, view, ref, exc) from None
@@ -438,7 +447,7 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     matrix = fit.matrix
     slope = None
     if params.path == "line":
-        slope = _line_slope(params, images[2:], views, ref, reference, poi, view, found, memo)
+        slope = _line_slope(params, images[3:], views, ref, reference, poi, view, found, memo)
         target = np.array(poi) + slope * (view - ref)
         shift = np.eye(3)
         shift[:2, 2] = target - np.array(poi)
@@ -457,6 +466,8 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     }
     if slope is not None:
         report["path_step"] = [round(float(v), 4) for v in slope]
+    if params.fit_frame is not None:
+        report["fit_frame"] = params.fit_frame
     out = warp_image(image, matrix, params.filter, params.border)
     return Image(out, image.channels, with_report(image.meta, "align-views", report))
 

@@ -35,6 +35,11 @@ the product of the two mattes): for example a matte of a grey card or of the sta
 Pixels whose colour is exactly 0 in either camera (the empty border ``align-views`` leaves where a
 camera's frame does not reach, also without an alpha channel) take no part.
 
+Time. At each frame the cameras are compared at that frame, unless ``fit_frame`` names one frame
+to compare them at (for a rig whose cameras recorded sequences: a camera's exposure and white
+balance hold through a take, and fitting every frame on its own would add a little flicker over
+time, or follow something crossing one camera). The transform found there applies to every frame.
+
 Report. The fitted transform is returned in the output's metadata under ``color-match.*``
 (``matrix``: 3x3 rows R', G', B' over input R, G, B; ``offset``; ``inliers``: the share of compared
 pixels the fit kept; ``residual``: the RMS colour difference left on them, linear units;
@@ -64,8 +69,8 @@ from graphcore.image import ALPHA, COLOR, Image
 from graphcore.registry.operator import InputRange, OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.composite._channels import matte_values
-from operators.rig._common import (reference_view, require_same_size, rig_views, source_file,
-                                   view_number, with_report)
+from operators.rig._common import (FIT_FRAME_DOC, fit_sample, reference_view, require_same_size,
+                                   rig_views, source_file, view_number, with_report)
 from operators.rig._robust import DegenerateFit, robust_fit
 
 __all__ = ["COLOR_MATCH", "ColorMatchParams", "ColorFit", "fit_color", "apply_color"]
@@ -93,6 +98,7 @@ class ColorMatchParams(BaseModel):
     fit_size: int = Field(
         256, ge=16, le=4096, description="Longer side, in pixels, of the working grid both cameras "
                                          "are area-averaged to before they are compared.")
+    fit_frame: int | None = Field(None, description=FIT_FRAME_DOC)
     min_inliers: float = Field(
         0.5, ge=0, le=1, description="Warn when the robust fit keeps less than this share of the "
                                      "compared pixels.")
@@ -136,8 +142,9 @@ def _needs(params: ColorMatchParams, sample: Sample,
     ref = reference_view(params.reference, rig_views(ranges))
     if sample.view == ref:
         return {"image": (sample,)}
-    here, there = sample, sample.at_view(ref)
-    wanted: dict[str, Any] = {"image": (here, there)}
+    here = fit_sample(params.fit_frame, sample, ranges)
+    there = here.at_view(ref)
+    wanted: dict[str, Any] = {"image": (sample, here, there)}
     if "matte" in ranges:
         wanted["matte"] = (here, there)
     return wanted
@@ -283,8 +290,10 @@ def _compute(params: ColorMatchParams, inputs: Mapping[str, Any], ctx: OpContext
     view = view_number(ctx.sample, "color-match")
     if len(images) == 1:
         return images[0]                              # the reference camera: unchanged, bit for bit
-    image, reference = images
-    require_same_size(image, reference, "the reference camera")
+    image, fit_image, reference = images
+    require_same_size(fit_image, reference, "the reference camera")
+    if fit_image is not image:
+        require_same_size(image, fit_image, f"the same camera at fit_frame {params.fit_frame}")
     ref_view = reference_view(params.reference, rig_views(ctx.input_ranges))
     weight = None
     mattes = inputs.get("matte")
@@ -296,8 +305,10 @@ def _compute(params: ColorMatchParams, inputs: Mapping[str, Any], ctx: OpContext
                               f"{image.width}x{image.height}", field="matte", file=source_file(m),
                               fix="give the matte the plates' resolution")
         weight = np.clip(np.nan_to_num(here), 0, 1) * np.clip(np.nan_to_num(there), 0, 1)
-    fit = fit_color(image, reference, params.model, fit_size=params.fit_size, weight=weight)
+    fit = fit_color(fit_image, reference, params.model, fit_size=params.fit_size, weight=weight)
     report = {"view": view, "reference": ref_view, "model": params.model, **fit.report()}
+    if params.fit_frame is not None:
+        report["fit_frame"] = params.fit_frame
     if fit.inliers < params.min_inliers or fit.explained < _MIN_EXPLAINED:
         ctx.warn(f"view {view}: the colour fit to view {ref_view} is doubtful (it keeps "
                  f"{fit.inliers * 100:.0f} % of the compared pixels and explains "

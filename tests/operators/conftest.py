@@ -171,20 +171,28 @@ def texture(h: int, w: int, seed: int = 0, channels: int = 3) -> np.ndarray:
     return np.clip(0.5 + 0.15 * out, 0.05, 0.95).astype(np.float32)
 
 
-def rig_context(view: int, cameras: int, warnings: list[str] | None = None) -> OpContext:
-    """An ``OpContext`` at camera ``view`` of a rig of stills with cameras ``1..cameras`` (the
-    input ranges an operator declaring ``needs_ranges`` gets from the engine)."""
+def rig_context(view: int, cameras: int, warnings: list[str] | None = None, *, frame: int = 0,
+                frames: tuple[int, int] | None = None) -> OpContext:
+    """An ``OpContext`` at camera ``view`` (and ``frame``) of a rig with cameras ``1..cameras``: a
+    rig of stills, or of sequences holding ``frames`` (first, last). It carries the input ranges
+    an operator declaring ``needs_ranges`` gets from the engine."""
     from graphcore.registry.operator import FrameRange, InputRange
 
-    ranges = {"image": InputRange(None, FrameRange(1, cameras))}
-    return op_context(Sample(0, view), warnings, input_ranges=ranges)
+    ranges = {"image": InputRange(None if frames is None else FrameRange(*frames), FrameRange(1, cameras))}
+    return op_context(Sample(frame, view), warnings, input_ranges=ranges)
 
 
-def run_rig_op(op: Operator, params: Any, cameras: Mapping[int, Image], view: int,
-               warnings: list[str] | None = None, **other_ports: Mapping[int, Image]) -> Image:
-    """Run a rig operator at ``view`` the way the engine does: ask ``op.needs`` which cameras it
-    wants and hand it those images (``other_ports`` map a port to images per camera)."""
-    ctx = rig_context(view, len(cameras), warnings)
+def run_rig_op(op: Operator, params: Any, cameras: Mapping[Any, Image], view: int,
+               warnings: list[str] | None = None, *, frame: int = 0,
+               frames: tuple[int, int] | None = None, **other_ports: Mapping[Any, Image]) -> Image:
+    """Run a rig operator at ``view`` (and ``frame``) the way the engine does: ask ``op.needs``
+    which samples it wants and hand it those images.
+
+    ``cameras`` maps a view to its image (a rig of stills), or ``(frame, view)`` to an image (a rig
+    of sequences holding ``frames``); ``other_ports`` map further ports the same way.
+    """
+    n = len({k[1] if isinstance(k, tuple) else k for k in cameras})
+    ctx = rig_context(view, n, warnings, frame=frame, frames=frames)
     ranges = dict(ctx.input_ranges)
     for port in other_ports:
         ranges[port] = ranges["image"]
@@ -192,5 +200,7 @@ def run_rig_op(op: Operator, params: Any, cameras: Mapping[int, Image], view: in
     inputs: dict[str, Any] = {}
     for port, samples in wanted.items():
         source = cameras if port == "image" else other_ports[port]
-        inputs[port] = tuple(source[int(s.view)] for s in samples)
+        pick = (lambda s: source[(int(s.frame), int(s.view))]) if isinstance(next(iter(source)), tuple) \
+            else (lambda s: source[int(s.view)])
+        inputs[port] = tuple(pick(s) for s in samples)
     return run_op(op, params, inputs, ctx=ctx)

@@ -260,3 +260,23 @@ def test_a_point_of_interest_on_blank_content_is_a_clear_error():
     assert err.value.field == "min_point_matches" and "point of interest" in str(err.value)
     out = run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold", radius=0.5), cams, view=1)
     assert out.meta["align-views.aligned"] is True
+
+
+def test_fit_frame_applies_one_transform_to_every_frame():
+    """A rig of sequences, frames 1-3, camera 1 off by a fixed similarity; at frame 2 camera 1 is
+    blank (a flash, a lens cap). With fit_frame 1 frame 2 is warped by the frame-1 transform (the
+    same matrix at every frame); without it frame 2 cannot be aligned."""
+    known = similarity(1.5, 1.0, (4.0, -2.0))
+    cams = {}
+    for f in (1, 2, 3):
+        ref = texture(H, W, seed=50 + f)
+        moved = warp(ref, known) if f != 2 else np.full((H, W, 3), 0.5, np.float32)
+        cams[(f, 1)], cams[(f, 2)], cams[(f, 3)] = Image(moved, RGB), Image(ref, RGB), Image(ref, RGB)
+    p = AlignViewsParams(path="hold", fit_frame=1)
+    mats = [run_rig_op(ALIGN_VIEWS, p, cams, view=1, frame=f, frames=(1, 3)).meta["align-views.matrix"]
+            for f in (1, 2, 3)]
+    assert mats[0] == mats[1] == mats[2]
+    err = np.hypot(*(apply(np.array(mats[0]), apply(known, PROBES)) - PROBES).T).max()
+    assert err < 0.5
+    with pytest.raises(OpError, match="cannot align camera 1"):
+        run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold"), cams, view=1, frame=2, frames=(1, 3))

@@ -258,3 +258,31 @@ def test_an_empty_border_takes_no_part():
     plain = np.linalg.lstsq(np.column_stack([cam[:, :, 0].ravel(), np.ones(cam[:, :, 0].size)]),
                             ref[:, :, 0].ravel(), rcond=None)[0]
     assert abs(plain[0] - GAIN[0]) > 0.01
+
+
+def test_fit_frame_applies_one_fit_to_every_frame():
+    """A rig of sequences, frames 1-3: at frame 3 something unrelated crosses camera 1. With
+    fit_frame 1 every frame gets the frame-1 gains (checked equal, bit for bit in the report), so
+    frame 3 is corrected like the others; fitted at frame 3 itself the gains are off."""
+    base = {f: texture(80, 100, seed=40 + f) for f in (1, 2, 3)}
+    cams = {}
+    for f, tex in base.items():
+        cam = tex.copy()
+        if f == 3:
+            cam[:, :60] = texture(80, 60, seed=99)       # 60 % of camera 1 shows something else
+        cams[(f, 1)], cams[(f, 2)], cams[(f, 3)] = (Image(cam, RGB), Image(tex * GAIN + OFFSET, RGB),
+                                                    Image(tex, RGB))
+    p = ColorMatchParams(fit_frame=1)
+    reports = [run_rig_op(COLOR_MATCH, p, cams, view=1, frame=f, frames=(1, 3)).meta for f in (1, 2, 3)]
+    assert reports[0]["color-match.matrix"] == reports[1]["color-match.matrix"] == reports[2]["color-match.matrix"]
+    assert reports[2]["color-match.fit_frame"] == 1
+    np.testing.assert_allclose(np.diag(reports[2]["color-match.matrix"]), GAIN, atol=1e-4)
+    own = run_rig_op(COLOR_MATCH, ColorMatchParams(), cams, view=1, frame=3, frames=(1, 3), warnings=[])
+    assert np.max(np.abs(np.diag(own.meta["color-match.matrix"]) - GAIN)) > 0.01
+
+
+def test_fit_frame_outside_the_input_is_an_error():
+    cams = {(f, v): Image(texture(30, 40, seed=f), RGB) for f in (1, 2) for v in (1, 2, 3)}
+    with pytest.raises(OpError) as err:
+        run_rig_op(COLOR_MATCH, ColorMatchParams(fit_frame=9), cams, view=1, frame=1, frames=(1, 2))
+    assert err.value.field == "fit_frame" and "1-2" in str(err.value)
