@@ -56,6 +56,13 @@ Bradski, G., "ORB: an efficient alternative to SIFT or SURF", ICCV 2011) or ``si
 perceptual (sRGB-encoded) luma stretched to 8 bits per camera, matched by brute force with
 Lowe's ratio test (``ratio``).
 
+Wide rigs (``pairs``). By default each camera is compared with the reference camera. On a wide
+rig the cameras at the ends may share too little with it; ``pairs: chain`` compares each camera
+with its neighbour toward the reference instead (the point of interest carried along: each link
+is re-centred where the neighbour sees the point) and composes the transforms along the rig.
+Each link's error adds to the next, so use it only where direct comparison fails. A failed link
+with ``on_failure: identity`` counts as no change: the camera gets its neighbour's transform.
+
 Time. At each frame the cameras are compared at that frame, unless ``fit_frame`` names one frame
 to compare them at; a rig whose cameras recorded sequences should give one (the cameras of a rig
 do not move against each other during a take, and fitting every frame on its own would add a
@@ -152,6 +159,12 @@ class AlignViewsParams(BaseModel):
     min_point_matches: int = Field(
         5, ge=1, le=100000, description="Fewest matches near the point of interest that must agree "
                                         "on where it is.")
+    pairs: Literal["reference", "chain"] = Field(
+        "reference", description="Which cameras are compared: 'reference': each camera with the "
+                                 "reference camera; 'chain': each camera with its neighbour toward "
+                                 "the reference, the transforms composed along the rig (for wide "
+                                 "rigs whose end cameras share little with the reference; errors "
+                                 "add up along the chain).")
     fit_frame: int | None = Field(None, description=FIT_FRAME_DOC)
     on_failure: Literal["error", "identity"] = Field(
         "error", description="When a camera has too few matches: 'error' stops with an error; "
@@ -406,18 +419,86 @@ def _needs(params: AlignViewsParams, sample: Sample,
     if sample.view == ref:
         return {"image": (sample,)}
     here = fit_sample(params.fit_frame, sample, ranges)
-    if params.path == "hold":
+    if params.path == "hold" and params.pairs == "reference":
         return {"image": (sample, here, here.at_view(ref))}
     return {"image": (sample, here, here.at_view(ref), *(here.at_view(v) for v in views))}
 
 
-def _failure(params: AlignViewsParams, image: Image, view: int, ref: int, exc: TooFewMatches) -> OpError:
+def _failure(params: AlignViewsParams, image: Image, view: int, partner: int, ref: int,
+             exc: TooFewMatches) -> OpError:
     needed = getattr(params, exc.field)
-    return OpError(f"cannot align camera {view} to the reference camera {ref}: {exc} (at least "
-                   f"{needed} needed)", field=exc.field, file=source_file(image),
+    whom = (f"the reference camera {ref}" if partner == ref
+            else f"camera {partner} (its neighbour toward the reference camera {ref})")
+    return OpError(f"cannot align camera {view} to {whom}: {exc} (at least {needed} needed)",
+                   field=exc.field, file=source_file(image),
                    fix="give a 'point' on textured content both cameras see, raise 'radius', try "
                        "features 'sift', lower 'min_inliers', or set on_failure "
                        "'identity' to pass such cameras through unaligned")
+
+
+@dataclass(frozen=True)
+class _Link:
+    """Camera ``view``'s transform onto the reference camera, and how it was found."""
+
+    view: int
+    partner: int                      # the camera it was compared with
+    matrix: np.ndarray                # this camera's pixels -> the reference's
+    found: np.ndarray                 # where this camera sees the reference's point of interest
+    fit: ViewFit | None               # None: the comparison failed (see ``failure``)
+    failure: TooFewMatches | None = None
+
+
+def _where(matrix: np.ndarray, poi: tuple[float, float]) -> np.ndarray:
+    return _apply(np.linalg.inv(matrix), np.array([poi]))[0]
+
+
+def _links(params: AlignViewsParams, cams: Mapping[int, Image], views, ref: int,
+           poi: tuple[float, float], wanted: list[int], memo: dict[int, Features]) -> dict[int, _Link]:
+    """Transforms onto the reference for the cameras in ``wanted`` (and, with pairs 'chain', every
+    camera between them and the reference). A failed comparison raises the OpError when
+    ``on_failure`` is 'error'; otherwise the link is kept with ``fit=None``: identity for
+    pairs 'reference', the neighbour's transform for pairs 'chain'."""
+    out: dict[int, _Link] = {}
+
+    def compare(v: int, partner: int, point: tuple[float, float]) -> tuple[np.ndarray, ViewFit | None,
+                                                                            TooFewMatches | None]:
+        require_same_size(cams[v], cams[partner], f"camera {partner}")
+        try:
+            fit = measure_view(cams[v], cams[partner], params, point, memo)
+            return fit.matrix, fit, None
+        except TooFewMatches as exc:
+            if params.on_failure == "error":
+                raise _failure(params, cams[v], v, partner, ref, exc) from None
+            return np.eye(3), None, exc
+
+    if params.pairs == "reference":
+        for v in wanted:
+            m, fit, exc = compare(v, ref, poi)
+            out[v] = _Link(v, ref, m, _where(m, poi), fit, exc)
+        return out
+    for step in (-1, 1):
+        far = max((abs(v - ref) for v in wanted if (v - ref) * step > 0), default=0)
+        prev_matrix, prev_found, prev = np.eye(3), np.array(poi), ref
+        for d in range(1, far + 1):
+            v = ref + step * d
+            m, fit, exc = compare(v, prev, (float(prev_found[0]), float(prev_found[1])))
+            matrix = prev_matrix @ m
+            out[v] = _Link(v, prev, matrix, _where(matrix, poi), fit, exc)
+            prev_matrix, prev_found, prev = matrix, out[v].found, v
+    return out
+
+
+def _line_step(links: Mapping[int, _Link], ref: int, poi: tuple[float, float]) -> np.ndarray:
+    """Per-camera step of the point of interest along the least-squares line through the
+    reference camera's point; cameras whose comparison failed are left out."""
+    num, den = np.zeros(2), 0.0
+    for v, link in links.items():
+        if link.fit is None:
+            continue
+        k = v - ref
+        num += k * (link.found - np.array(poi))
+        den += k * k
+    return num / den if den > 0 else np.zeros(2)
 
 
 def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
@@ -428,75 +509,54 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     image, fit_image, reference = images[0], images[1], images[2]
     views = rig_views(ctx.input_ranges)
     ref = reference_view(params.reference, views)
-    require_same_size(fit_image, reference, "the reference camera")
     if fit_image is not image:
         require_same_size(image, fit_image, f"the same camera at fit_frame {params.fit_frame}")
     poi = _point(params, reference)
-    memo: dict[int, Features] = {}
-    try:
-        fit = measure_view(fit_image, reference, params, poi, memo)
-    except TooFewMatches as exc:
-        if params.on_failure == "error":
-            raise _failure(params, image, view, ref, exc) from None
-        ctx.warn(f"view {view}: not aligned ({exc}); passed through unchanged")
-        meta = with_report(image.meta, "align-views", {"view": view, "reference": ref,
-                                                       "aligned": False, "matches": exc.matches,
-                                                       "inliers": exc.inliers})
+    everyone = params.path == "line" or params.pairs == "chain"
+    cams = dict(zip(views, images[3:])) if everyone else {view: fit_image, ref: reference}
+    cams[view] = fit_image
+    wanted = [v for v in views if v != ref] if params.path == "line" else [view]
+    links = _links(params, cams, views, ref, poi, wanted, {})
+    link = links[view]
+    if link.fit is None and params.pairs == "reference":
+        ctx.warn(f"view {view}: not aligned ({link.failure}); passed through unchanged")
+        meta = with_report(image.meta, "align-views", {"view": view, "reference": ref, "aligned": False,
+                                                       "matches": link.failure.matches,
+                                                       "inliers": link.failure.inliers})
         return image.replace(meta=meta)
-    found = _apply(np.linalg.inv(fit.matrix), np.array([poi]))[0]   # where this camera sees the point
-    matrix = fit.matrix
-    slope = None
+    if link.fit is None:
+        ctx.warn(f"view {view}: not aligned to camera {link.partner} ({link.failure}); given camera "
+                 f"{link.partner}'s transform")
+    matrix = link.matrix
+    step = None
     if params.path == "line":
-        slope = _line_slope(params, images[3:], views, ref, reference, poi, view, found, memo)
-        target = np.array(poi) + slope * (view - ref)
+        step = _line_step(links, ref, poi)
         shift = np.eye(3)
-        shift[:2, 2] = target - np.array(poi)
+        shift[:2, 2] = step * (view - ref)
         matrix = shift @ matrix
+    found = link.found
     moved = _apply(matrix, np.array([found]))[0] - found
     a = matrix[:2, :2]
     report: dict[str, Any] = {
-        "view": view, "reference": ref, "aligned": True, "model": params.model, "path": params.path,
+        "view": view, "reference": ref, "aligned": link.fit is not None, "model": params.model,
+        "path": params.path, "pairs": params.pairs, "compared_with": link.partner,
         "matrix": [[float(f"{v:.9g}") for v in row] for row in matrix],
-        "matches": fit.matches, "inliers": fit.inliers, "point_matches": fit.point_matches,
-        "residual_rms": round(fit.residual_rms, 4), "residual_median": round(fit.residual_median, 4),
         "rotation_deg": round(math.degrees(math.atan2(a[1, 0] - a[0, 1], a[0, 0] + a[1, 1])), 5),
         "scale": round(math.sqrt(abs(np.linalg.det(a))), 6),
         "point": [round(v, 3) for v in poi], "point_found": [round(float(v), 3) for v in found],
         "shift": [round(float(v), 3) for v in moved],
     }
-    if slope is not None:
-        report["path_step"] = [round(float(v), 4) for v in slope]
+    if link.fit is not None:
+        fit = link.fit
+        report.update({"matches": fit.matches, "inliers": fit.inliers, "point_matches": fit.point_matches,
+                       "residual_rms": round(fit.residual_rms, 4),
+                       "residual_median": round(fit.residual_median, 4)})
+    if step is not None:
+        report["path_step"] = [round(float(v), 4) for v in step]
     if params.fit_frame is not None:
         report["fit_frame"] = params.fit_frame
     out = warp_image(image, matrix, params.filter, params.border)
     return Image(out, image.channels, with_report(image.meta, "align-views", report))
-
-
-def _line_slope(params: AlignViewsParams, cameras: tuple[Image, ...], views, ref: int, reference: Image,
-                poi: tuple[float, float], view: int, found_here: np.ndarray,
-                memo: dict[int, Features]) -> np.ndarray:
-    """Per-camera step of the point of interest along the least-squares line through the
-    reference camera's point (cameras that cannot be aligned are left out when on_failure is
-    'identity')."""
-    num, den = np.zeros(2), 0.0
-    for v, cam in zip(views, cameras):
-        if v == ref:
-            continue
-        if v == view:
-            found = found_here
-        else:
-            require_same_size(cam, reference, "the reference camera")
-            try:
-                fit = measure_view(cam, reference, params, poi, memo)
-            except TooFewMatches as exc:
-                if params.on_failure == "error":
-                    raise _failure(params, cam, v, ref, exc) from None
-                continue
-            found = _apply(np.linalg.inv(fit.matrix), np.array([poi]))[0]
-        k = v - ref
-        num += k * (found - np.array(poi))
-        den += k * k
-    return num / den if den > 0 else np.zeros(2)
 
 
 def _link_problems(params: AlignViewsParams, connected: frozenset[str]) -> list[OpError]:
