@@ -35,6 +35,11 @@ the product of the two mattes): for example a matte of a grey card or of the sta
 Pixels whose colour is exactly 0 in either camera (the empty border ``align-views`` leaves where a
 camera's frame does not reach, also without an alpha channel) take no part.
 
+Wide rigs (``pairs: chain``): each camera is compared with its neighbour toward the reference and
+the transforms are composed (``M2 M1`` and ``M2 o1 + o2``), for rigs whose end cameras share too
+little with the reference; each link's error adds to the next. The report's ``inliers``,
+``residual`` and ``explained`` are then those of the camera's own link (``compared_with``).
+
 Time. At each frame the cameras are compared at that frame, unless ``fit_frame`` names one frame
 to compare them at (for a rig whose cameras recorded sequences: a camera's exposure and white
 balance hold through a take, and fitting every frame on its own would add a little flicker over
@@ -98,6 +103,11 @@ class ColorMatchParams(BaseModel):
     fit_size: int = Field(
         256, ge=16, le=4096, description="Longer side, in pixels, of the working grid both cameras "
                                          "are area-averaged to before they are compared.")
+    pairs: Literal["reference", "chain"] = Field(
+        "reference", description="Which cameras are compared: 'reference': each camera with the "
+                                 "reference camera; 'chain': each camera with its neighbour toward "
+                                 "the reference, the transforms composed along the rig (wide rigs; "
+                                 "errors add up along the chain).")
     fit_frame: int | None = Field(None, description=FIT_FRAME_DOC)
     min_inliers: float = Field(
         0.5, ge=0, le=1, description="Warn when the robust fit keeps less than this share of the "
@@ -137,16 +147,25 @@ class ColorFit:
                 "samples": self.samples}
 
 
+def _path(params: ColorMatchParams, view: int, ref: int) -> list[int]:
+    """The cameras compared in turn, from ``view`` to ``ref``: just the two, or (pairs 'chain')
+    every camera between them."""
+    if params.pairs == "reference":
+        return [view, ref]
+    step = 1 if ref > view else -1
+    return list(range(view, ref + step, step))
+
+
 def _needs(params: ColorMatchParams, sample: Sample,
            ranges: Mapping[str, InputRange]) -> dict[str, Any]:
     ref = reference_view(params.reference, rig_views(ranges))
     if sample.view == ref:
         return {"image": (sample,)}
     here = fit_sample(params.fit_frame, sample, ranges)
-    there = here.at_view(ref)
-    wanted: dict[str, Any] = {"image": (sample, here, there)}
+    path = tuple(here.at_view(v) for v in _path(params, int(sample.view), ref))
+    wanted: dict[str, Any] = {"image": (sample, *path)}
     if "matte" in ranges:
-        wanted["matte"] = (here, there)
+        wanted["matte"] = path
     return wanted
 
 
@@ -285,35 +304,53 @@ def apply_color(image: Image, fit: ColorFit) -> np.ndarray:
     return px
 
 
+def _matte_weight(mattes: tuple[Image, Image], image: Image) -> np.ndarray:
+    for m in mattes:
+        if m.size != image.size:
+            raise OpError(f"a matte is {m.width}x{m.height} but the camera is "
+                          f"{image.width}x{image.height}", field="matte", file=source_file(m),
+                          fix="give the matte the plates' resolution")
+    here, there = (np.clip(np.nan_to_num(matte_values(m)), 0, 1) for m in mattes)
+    return here * there
+
+
+def _compose(first: ColorFit, then: ColorFit) -> ColorFit:
+    """``then`` after ``first`` (C' = M C + o A composes as M2 M1 and M2 o1 + o2); the statistics
+    are ``first``'s (the link of the camera itself)."""
+    return ColorFit(then.matrix @ first.matrix, then.matrix @ first.offset + then.offset,
+                    first.inliers, first.residual, first.explained, first.samples)
+
+
 def _compute(params: ColorMatchParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     images = inputs["image"]
     view = view_number(ctx.sample, "color-match")
     if len(images) == 1:
         return images[0]                              # the reference camera: unchanged, bit for bit
-    image, fit_image, reference = images
-    require_same_size(fit_image, reference, "the reference camera")
-    if fit_image is not image:
-        require_same_size(image, fit_image, f"the same camera at fit_frame {params.fit_frame}")
+    image, cams = images[0], images[1:]
     ref_view = reference_view(params.reference, rig_views(ctx.input_ranges))
-    weight = None
+    path = _path(params, view, ref_view)
+    if cams[0] is not image:
+        require_same_size(image, cams[0], f"the same camera at fit_frame {params.fit_frame}")
     mattes = inputs.get("matte")
-    if mattes is not None:
-        here, there = (matte_values(m) for m in mattes)
-        for m, what in ((mattes[0], "this camera's matte"), (mattes[1], "the reference camera's matte")):
-            if m.size != image.size:
-                raise OpError(f"{what} is {m.width}x{m.height} but the camera is "
-                              f"{image.width}x{image.height}", field="matte", file=source_file(m),
-                              fix="give the matte the plates' resolution")
-        weight = np.clip(np.nan_to_num(here), 0, 1) * np.clip(np.nan_to_num(there), 0, 1)
-    fit = fit_color(fit_image, reference, params.model, fit_size=params.fit_size, weight=weight)
-    report = {"view": view, "reference": ref_view, "model": params.model, **fit.report()}
+    fit = None
+    for i in range(len(path) - 1):
+        a, b = cams[i], cams[i + 1]
+        what = "the reference camera" if path[i + 1] == ref_view else f"camera {path[i + 1]}"
+        require_same_size(a, b, what)
+        weight = None if mattes is None else _matte_weight((mattes[i], mattes[i + 1]), a)
+        link = fit_color(a, b, params.model, fit_size=params.fit_size, weight=weight)
+        if link.inliers < params.min_inliers or link.explained < _MIN_EXPLAINED:
+            ctx.warn(f"view {path[i]}: the colour fit to view {path[i + 1]} is doubtful (it keeps "
+                     f"{link.inliers * 100:.0f} % of the compared pixels and explains "
+                     f"{max(link.explained, 0) * 100:.0f} % of their colour variance); check the "
+                     "cameras are aligned (align-views first) or connect a matte over content both "
+                     "cameras see")
+        fit = link if fit is None else _compose(fit, link)
+    assert fit is not None
+    report = {"view": view, "reference": ref_view, "model": params.model, "pairs": params.pairs,
+              "compared_with": path[1], **fit.report()}
     if params.fit_frame is not None:
         report["fit_frame"] = params.fit_frame
-    if fit.inliers < params.min_inliers or fit.explained < _MIN_EXPLAINED:
-        ctx.warn(f"view {view}: the colour fit to view {ref_view} is doubtful (it keeps "
-                 f"{fit.inliers * 100:.0f} % of the compared pixels and explains "
-                 f"{max(fit.explained, 0) * 100:.0f} % of their colour variance); check the cameras "
-                 "are aligned (align-views first) or connect a matte over content both cameras see")
     return Image(apply_color(image, fit), image.channels, with_report(image.meta, "color-match", report))
 
 
