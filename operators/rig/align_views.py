@@ -17,8 +17,8 @@ roll, scale and perspective between the two cameras are the cameras' own. (2) Th
 re-centred on the point of interest (``point``, in the reference camera's pixels; default the
 image centre): the shift still left between the reference's features and this camera's mapped
 features within ``radius`` of the point (a fraction of the image's shorter side; nearer matches
-count more, weight ``(1 - (d / radius)^2)^2``; the weighted median per axis, then the weighted
-mean of the matches within ``ransac_threshold`` of it) is added. The content at
+count more, weight ``(1 - (d / radius)^2)^2``; the shift with the most weight of matches within
+``ransac_threshold`` of it, refined to their weighted mean) is added. The content at
 the point, at whatever depth, then lands where the reference sees it, and everything nearer or
 farther keeps its parallax relative to it.
 
@@ -266,12 +266,6 @@ def _match(desc_a: np.ndarray | None, desc_b: np.ndarray | None, kind: str, rati
     return np.array(sorted((q, t) for t, (_, q) in best.items()), np.int64).reshape(-1, 2)
 
 
-def _weighted_median(values: np.ndarray, weights: np.ndarray) -> float:
-    order = np.argsort(values)
-    cum = np.cumsum(weights[order])
-    return float(values[order][np.searchsorted(cum, 0.5 * cum[-1])])
-
-
 Features = tuple[np.ndarray, "np.ndarray | None"]
 
 
@@ -295,8 +289,8 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     background), whose roll, scale and perspective are those of the camera. (2) The transform is
     re-centred on the point of interest: the shift left between the reference's features and the
     mapped features of this camera near the point (within ``radius``, weighted by
-    ``(1 - (d / radius)^2)^2`` of their distance ``d`` to the point; the weighted median per
-    axis, refined to the weighted mean of the matches within ``ransac_threshold`` of it) is added,
+    ``(1 - (d / radius)^2)^2`` of their distance ``d`` to the point; the shift with the most
+    weight of matches within ``ransac_threshold`` of it, refined to their weighted mean) is added,
     so the content at the point, at whatever depth, lands where the reference sees it.
 
     Parameters
@@ -348,11 +342,13 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     if len(left) == 0:
         raise TooFewMatches(f"no feature matches within {reach:.0f} px of the point of interest "
                             f"({n} elsewhere)", n, int(inl.sum()), "min_point_matches")
-    shift = np.array([_weighted_median(left[:, 0], w), _weighted_median(left[:, 1], w)])
-    close = np.hypot(*(left - shift).T) <= params.ransac_threshold
+    # the shift most of the (nearness-weighted) matches agree on: each match proposes its own,
+    # scored by the weight of the matches within ransac_threshold of it (a one-point consensus)
+    gap = np.hypot(left[:, None, 0] - left[None, :, 0], left[:, None, 1] - left[None, :, 1])
+    support = (gap <= params.ransac_threshold).astype(np.float64) @ w
+    close = gap[int(np.argmax(support))] <= params.ransac_threshold
     agree = int(close.sum())
-    if agree and float(w[close].sum()) > 0:             # refine: weighted mean of those that agree
-        shift = (w[close, None] * left[close]).sum(axis=0) / w[close].sum()
+    shift = (w[close, None] * left[close]).sum(axis=0) / max(float(w[close].sum()), 1e-300)
     if agree < params.min_point_matches:
         raise TooFewMatches(f"only {agree} feature matches within {reach:.0f} px of the point of "
                             f"interest agree on where it is ({len(left)} near it)", n, int(inl.sum()),

@@ -72,7 +72,7 @@ def fitted_error(known: np.ndarray, **params) -> tuple[float, Image]:
 # -- known answers ------------------------------------------------------------------------------------
 def test_similarity_recovered():
     """Rotation 2 degrees, scale 1.03, shift (6, -4) px. Measured: the fitted transform maps the
-    probe points within 0.06 px of where the inverse of the known one does (rotation -2.015
+    probe points within 0.08 px of where the inverse of the known one does (rotation -2.015
     degrees, scale 0.97090 against 1 / 1.03 = 0.97087; 1900 of 1913 matches inliers, RANSAC
     residual 0.84 px RMS, the features' own pixel precision). Asserted: 0.5 px, rotation and scale
     to 0.05 degrees and 0.002."""
@@ -85,7 +85,7 @@ def test_similarity_recovered():
 
 
 def test_rigid_recovered():
-    """Rotation -1.5 degrees, shift (3.5, 2.25) px (the default model). Measured: 0.08 px,
+    """Rotation -1.5 degrees, shift (3.5, 2.25) px (the default model). Measured: 0.10 px,
     rotation 1.485 degrees."""
     err, out = fitted_error(similarity(-1.5, 1.0, (3.5, 2.25)))
     assert err < 0.5, err
@@ -170,8 +170,8 @@ def test_line_keeps_the_travel_and_hold_removes_it(path):
     through camera 3's point is sum_k (k-3) x_k / sum_k (k-3)^2 with x_k = 6 (k-3) + jitter_k:
     x: (-11.2, -7.5, 0, 7.1, 11.6), so the step is (22.4 + 7.5 + 7.1 + 23.2) / 10 = 6.02 px; y:
     (-1.2, 0.6, 0, 1.4, -0.9), so (2.4 - 0.6 + 1.4 - 1.8) / 10 = 0.14 px. 'line' puts camera k's
-    point at centre + step (k - 3); 'hold' at the centre. Measured: within 0.16 px of those
-    (asserted 0.3 px), and the step (6.011, 0.153) px (asserted within 0.05)."""
+    point at centre + step (k - 3); 'hold' at the centre. Measured: within 0.12 px of those
+    (asserted 0.3 px), and the step (6.010, 0.154) px (asserted within 0.05)."""
     cams = translating_rig({k: 6.0 for k in range(1, 6)}, JITTER)
     step = np.array([6.02, 0.14])
     for k in (1, 2, 4, 5):
@@ -299,8 +299,8 @@ def test_chain_composes_neighbour_transforms():
     """Chained camera by camera, the composed transform of the end cameras maps the probe points
     back as the inverse of the known one does: by Hartley and Zisserman's composition of 3x3
     transforms the chain equals the direct fit up to the links' errors, which add up. Measured:
-    within 0.15 px at every camera, 0.04 and 0.09 px at the end cameras (two links; compared
-    directly with the reference: 0.06 and 0.09 px); asserted 0.6 px."""
+    within 0.16 px at every camera, 0.05 and 0.09 px at the end cameras (two links; compared
+    directly with the reference: 0.06 and 0.07 px); asserted 0.6 px."""
     cams, known = rolling_rig()
     for k in (1, 2, 4, 5):
         out = run_rig_op(ALIGN_VIEWS, AlignViewsParams(path="hold", pairs="chain"), cams, view=k)
