@@ -115,6 +115,7 @@ from operators.vectors._encode import perceptual
 __all__ = ["ALIGN_VIEWS", "AlignViewsParams", "ViewFit", "measure_view", "warp_image", "TooFewMatches"]
 
 _FILTERS = {"bilinear": cv2.INTER_LINEAR, "bicubic": cv2.INTER_CUBIC, "lanczos": cv2.INTER_LANCZOS4}
+_MAX_POINT_MATCHES = 2000   # matches near the point weighed against each other (memory ~ n^2)
 _RNG_SEED = 1981   # OpenCV's RANSAC draws from its thread's generator: seeded, for repeatable results
 
 
@@ -284,7 +285,7 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
                  point: tuple[float, float], memo: dict[int, Features] | None = None) -> ViewFit:
     """Fit the transform taking ``image``'s pixels onto ``reference``'s, re-centred on ``point``.
 
-    Two steps. (1) The model (similarity or homography) is fitted by RANSAC to every ratio-test
+    Two steps. (1) The model (rigid, similarity or homography) is fitted by RANSAC to every ratio-test
     match: the largest consistent set is the dominant plane of the picture (usually the
     background), whose roll, scale and perspective are those of the camera. (2) The transform is
     re-centred on the point of interest: the shift left between the reference's features and the
@@ -339,6 +340,9 @@ def measure_view(image: Image, reference: Image, params: AlignViewsParams,
     near = dist < reach
     left = dst[near] - mapped[near]
     w = (1.0 - (dist[near] / reach) ** 2) ** 2
+    if len(w) > _MAX_POINT_MATCHES:                      # the nearest ones carry the weight anyway
+        keep = np.argsort(-w, kind="stable")[:_MAX_POINT_MATCHES]
+        left, w = left[keep], w[keep]
     if len(left) == 0:
         raise TooFewMatches(f"no feature matches within {reach:.0f} px of the point of interest "
                             f"({n} elsewhere)", n, int(inl.sum()), "min_point_matches")
