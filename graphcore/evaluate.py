@@ -93,6 +93,11 @@ class Evaluator:
         return exc
 
     # -- what a node asks of its inputs ---------------------------------------------------------
+    def _input_ranges(self, nid: str) -> dict[str, InputRange]:
+        """``InputRange(frames, views)`` of each connected input of ``nid``."""
+        return {port: InputRange(self.frames(src), self.views(src))
+                for port, src in self.graph.nodes[nid].inputs.items()}
+
     def requests(self, nid: str, sample: Sample) -> list[Request]:
         memo = self._requests.get((nid, sample))
         if memo is not None:
@@ -101,8 +106,7 @@ class Evaluator:
         op = self.ops[nid]
         try:
             if op.needs_ranges:
-                ranges = {port: InputRange(self.frames(src), self.views(src)) for port, src in node.inputs.items()}
-                asked = op.needs(node.params, sample, ranges)
+                asked = op.needs(node.params, sample, self._input_ranges(nid))
             else:
                 asked = op.needs(node.params, sample)
         except InputError as exc:
@@ -282,7 +286,8 @@ class Evaluator:
                         tool_version=__version__, params_json=self._params_json[nid],
                         sources=self.sources(nid, sample), path_nodes=self._path_nodes[nid],
                         warn=lambda msg, _nid=nid: self._warn(_nid, msg),
-                        protected_paths=self.protected_paths)
+                        protected_paths=self.protected_paths,
+                        input_ranges=self._input_ranges(nid) if op.needs_ranges else {})
         self.calls[nid] += 1
         try:
             result = op.compute(node.params, inputs, ctx)

@@ -115,4 +115,18 @@ def _fail(params: FailParams, inputs, ctx) -> Image:
 FAIL = Operator(name="test-fail", version=1, summary="always fails", params=FailParams, compute=_fail,
                 inputs=(Port("image", "input"),))
 
-ALL = (CONST, SCALE, ADD, NEXT_DIFF, COLLECT, FAIL)
+class RangesParams(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+def _ranges(params: RangesParams, inputs, ctx) -> Image:
+    """Pixels (first, last) of the input's frame range as ``compute`` sees it in ctx.input_ranges."""
+    frames = ctx.input_ranges["image"].frames
+    return Image(np.array([[[frames.first, frames.last]]], np.float32), ("first", "last"))
+
+
+RANGES = Operator(name="test-ranges", version=1, summary="input frame range seen by compute",
+                  params=RangesParams, compute=_ranges, inputs=(Port("image", "input"),),
+                  needs=lambda p, s, r: {"image": s}, needs_ranges=True)
+
+ALL = (CONST, SCALE, ADD, NEXT_DIFF, COLLECT, FAIL, RANGES)

@@ -14,7 +14,8 @@ An operator never touches the cache, the graph or the command line. The evaluato
 - ``views(params, input_views)``: likewise for the integer views (camera numbers) of a rig.
 - ``needs_ranges``: if True, ``needs`` is called as ``needs(params, sample, ranges)`` with
   ``ranges[port] = InputRange(frames, views)`` of each connected input (``retime`` numbers its
-  output from the source's first frame without being told it).
+  output from the source's first frame without being told it). ``compute`` then finds the same
+  mapping in ``ctx.input_ranges`` (``align-views`` needs the rig's cameras in both).
 - ``range_inputs``: if True, the ``frames`` and ``views`` hooks receive ``InputRange(frames, views)``
   for each connected port instead of the port's range on that axis alone (``view-path`` turns a
   rig's cameras into output frames).
@@ -122,6 +123,7 @@ class OpContext:
     path_nodes: tuple[Mapping[str, Any], ...] = ()  # [{"id","op","params"}] of upstream nodes
     warn: Callable[[str], None] = field(default=lambda msg: None)
     protected_paths: frozenset[str] = frozenset()  # files sinks must never replace (read sources)
+    input_ranges: Mapping[str, InputRange] = field(default_factory=dict)  # filled for needs_ranges
 
     def provenance(self) -> dict[str, Any]:
         """The provenance record a sink writes into its file header."""

@@ -88,6 +88,13 @@ def test_frame_ranges_intersect(registry):
     assert ev.frames("out") == FrameRange(5, 10)
 
 
+def test_compute_of_a_needs_ranges_operator_sees_its_inputs_ranges(registry):
+    nodes = {"a": {"op": "test-const", "params": {"first": 3, "last": 7}},
+             "r": {"op": "test-ranges", "inputs": {"image": "a"}}}
+    img = _ev(registry, nodes).evaluate("r", Sample(4))
+    assert img.pixels.ravel().tolist() == [3.0, 7.0]
+
+
 def test_disjoint_frame_ranges_are_an_input_error(registry):
     nodes = {"a": {"op": "test-const", "params": {"first": 1, "last": 3}},
              "b": {"op": "test-const", "params": {"first": 5, "last": 9}},

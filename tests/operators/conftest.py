@@ -150,3 +150,57 @@ def truncated_copy(src, dst, keep: float = 0.5) -> Path:
     data = Path(src).read_bytes()
     Path(dst).write_bytes(data[: int(len(data) * keep)])
     return Path(dst)
+
+
+# -- rigs ------------------------------------------------------------------------------------------
+def texture(h: int, w: int, seed: int = 0, channels: int = 3) -> np.ndarray:
+    """Seeded multi-scale texture, shape (h, w, channels), float32 in about 0.05..0.95.
+
+    Noise blurred at several scales and summed: corners and blobs at every size, as feature
+    detectors and colour fits need (invented data for known-answer tests).
+    """
+    import cv2
+
+    rng = np.random.default_rng(seed)
+    out = np.zeros((h, w, channels), np.float32)
+    for sigma, amp in ((1.0, 0.35), (3.0, 0.35), (9.0, 0.3)):
+        layer = cv2.GaussianBlur(rng.random((h, w, channels), dtype=np.float32), (0, 0), sigma)
+        layer = layer.reshape(h, w, channels)
+        layer -= layer.mean()
+        out += amp * layer / (layer.std() + 1e-9)
+    return np.clip(0.5 + 0.15 * out, 0.05, 0.95).astype(np.float32)
+
+
+def rig_context(view: int, cameras: int, warnings: list[str] | None = None, *, frame: int = 0,
+                frames: tuple[int, int] | None = None) -> OpContext:
+    """An ``OpContext`` at camera ``view`` (and ``frame``) of a rig with cameras ``1..cameras``: a
+    rig of stills, or of sequences holding ``frames`` (first, last). It carries the input ranges
+    an operator declaring ``needs_ranges`` gets from the engine."""
+    from graphcore.registry.operator import FrameRange, InputRange
+
+    ranges = {"image": InputRange(None if frames is None else FrameRange(*frames), FrameRange(1, cameras))}
+    return op_context(Sample(frame, view), warnings, input_ranges=ranges)
+
+
+def run_rig_op(op: Operator, params: Any, cameras: Mapping[Any, Image], view: int,
+               warnings: list[str] | None = None, *, frame: int = 0,
+               frames: tuple[int, int] | None = None, **other_ports: Mapping[Any, Image]) -> Image:
+    """Run a rig operator at ``view`` (and ``frame``) the way the engine does: ask ``op.needs``
+    which samples it wants and hand it those images.
+
+    ``cameras`` maps a view to its image (a rig of stills), or ``(frame, view)`` to an image (a rig
+    of sequences holding ``frames``); ``other_ports`` map further ports the same way.
+    """
+    n = len({k[1] if isinstance(k, tuple) else k for k in cameras})
+    ctx = rig_context(view, n, warnings, frame=frame, frames=frames)
+    ranges = dict(ctx.input_ranges)
+    for port in other_ports:
+        ranges[port] = ranges["image"]
+    wanted = op.needs(params, ctx.sample, ranges)
+    inputs: dict[str, Any] = {}
+    for port, samples in wanted.items():
+        source = cameras if port == "image" else other_ports[port]
+        pick = (lambda s: source[(int(s.frame), int(s.view))]) if isinstance(next(iter(source)), tuple) \
+            else (lambda s: source[int(s.view)])
+        inputs[port] = tuple(pick(s) for s in samples)
+    return run_op(op, params, inputs, ctx=ctx)
