@@ -160,17 +160,24 @@ def cmd_run(args: argparse.Namespace) -> int:
     report = outcome.report
     failed = report.failed
     if failed:
-        by_message: dict[str, list[int]] = {}
+        def where(results) -> str:
+            if any(r.view for r in results):      # per-view files: name each (frame, view)
+                names = [r.where for r in results]
+                return ", ".join(names[:12]) + (f" and {len(names) - 12} more" if len(names) > 12 else "")
+            return f"frame(s) {compact_frames([r.frame for r in results])}"
+
+        by_message: dict[str, list] = {}
         for r in failed:
-            by_message.setdefault(r.message, []).append(r.frame)
-        for message, frames_failed in by_message.items():
-            print(f"midframe: error: frame(s) {compact_frames(frames_failed)}: {message}", file=sys.stderr)
-        print(f"midframe: {len(failed)} of {len(report.results)} frames failed: "
-              f"{compact_frames([r.frame for r in failed])}", file=sys.stderr)
+            by_message.setdefault(r.message, []).append(r)
+        for message, results in by_message.items():
+            print(f"midframe: error: {where(results)}: {message}", file=sys.stderr)
+        print(f"midframe: {len(failed)} of {len(report.results)} frames failed: {where(failed)}",
+              file=sys.stderr)
         return report.exit_code
     done = len(report.results)
     frames = len(outcome.frames)
-    outputs = f" ({done} files from {done // max(1, frames)} outputs)" if done != frames else ""
+    sequences = len({(r.node_id, r.view) for r in report.results})   # one per sink, per view of a per-view sink
+    outputs = f" ({done} files in {sequences} sequences)" if done != frames else ""
     print(f"midframe: rendered {frames} frame{'s' if frames != 1 else ''}{outputs}", file=sys.stderr)
     return EXIT_OK
 

@@ -50,6 +50,6 @@ class Progress:
                 self.stream.write("\n")
         else:
             status = "ok" if result.status == "ok" else f"FAILED ({result.status})"
-            self.stream.write(f"midframe: frame {result.frame} node {result.node_id} {status} "
+            self.stream.write(f"midframe: {result.where} node {result.node_id} {status} "
                               f"{result.seconds:.2f}s [{self.done}/{self.total}, left {_fmt(left)}]\n")
         self.stream.flush()

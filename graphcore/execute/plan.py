@@ -14,7 +14,7 @@ from graphcore.evaluate import Evaluator, NodeFailure
 from graphcore.registry import FrameRange
 from graphcore.sample import Sample
 
-__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "output_frames", "protected_paths",
+__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "output_frames", "protected_paths",
            "check_targets", "render_task"]
 
 
@@ -43,6 +43,12 @@ class FrameResult:
     error: dict = field(default_factory=dict)  # InputError fields for input errors
     seconds: float = 0.0
     warnings: list[str] = field(default_factory=list)
+    view: int = 0   # the view of a per-view sink's task (0 otherwise)
+
+    @property
+    def where(self) -> str:
+        """``frame F`` or, for a per-view task, ``frame F view V``."""
+        return f"frame {self.frame}" + (f" view {self.view}" if self.view else "")
 
 
 @dataclass
@@ -74,11 +80,34 @@ def output_frames(ev: Evaluator, frames: FrameRange | None) -> list[int]:
     return list(range(lo, hi + 1))
 
 
+def sink_views(ev: Evaluator, sink: str) -> list[int] | None:
+    """The views a per-view sink writes (its input's view range), None for other sinks."""
+    op = ev.ops[sink]
+    if op.per_view is None or not op.per_view(ev.graph.nodes[sink].params):
+        return None
+    views = ev.views(sink)
+    if views is None:
+        raise InputError("this write numbers its files by view, but its input has no views to write",
+                         file=ev.graph.file, node_id=sink, field=f"nodes.{sink}.params.view_token",
+                         fix="feed it a rig (cameras read with axis 'view' or a view_token, or a "
+                             "view-path in mode 'views'), or remove view_token")
+    return list(views)
+
+
 def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:
-    """One task per sink per frame; a frame outside a sink's input range fails on its own, with the
-    operator's message (e.g. the missing file), rather than being silently dropped."""
+    """One task per sink per frame (per frame and view for a per-view sink); a frame outside a
+    sink's input range fails on its own, with the operator's message (e.g. the missing file),
+    rather than being silently dropped. Frame-major: chunks keep a frame (all its views) together."""
     frames = list(frames)
-    return [Task(sink, f) for f in frames for sink in ev.sinks()]  # frame-major: chunks keep a frame together
+    views = {sink: sink_views(ev, sink) for sink in ev.sinks()}
+    tasks = []
+    for f in frames:
+        for sink in ev.sinks():
+            if views[sink] is None:
+                tasks.append(Task(sink, f))
+            else:
+                tasks.extend(Task(sink, f, v) for v in views[sink])
+    return tasks
 
 
 def protected_paths(ev: Evaluator) -> frozenset[str]:
@@ -102,9 +131,11 @@ def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -
     """Refuse, before anything renders, a sink that would replace a source plate or another sink's
     frame."""
     seen: dict[str, str] = {}
-    by_sink: dict[str, list[int]] = {}
+    by_sink: dict[str, list] = {}
     for t in tasks:
-        by_sink.setdefault(t.node_id, []).append(t.frame)
+        per_view = ev.ops[t.node_id].per_view
+        item = (t.frame, t.view) if per_view is not None and per_view(ev.graph.nodes[t.node_id].params) else t.frame
+        by_sink.setdefault(t.node_id, []).append(item)
     for sink, frames in sorted(by_sink.items()):
         op = ev.ops[sink]
         if op.targets is None:
@@ -136,7 +167,8 @@ def render_task(ev: Evaluator, task: Task) -> FrameResult:
     except NodeFailure as exc:
         status, message, error = "failure", str(exc), {"node_id": exc.node_id}
     new = [f"node '{n}': {m}" for (n, m) in ev.warnings if (n, m) not in before]
-    return FrameResult(task.node_id, task.frame, status, message, error, time.perf_counter() - t0, new)
+    return FrameResult(task.node_id, task.frame, status, message, error, time.perf_counter() - t0, new,
+                       view=task.view)
 
 
 ProgressFn = Callable[[FrameResult], None]

@@ -60,7 +60,7 @@ def _start_worker(payload: dict[str, Any]) -> None:
 
 def _run_chunk(tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
     if "error" in _worker:
-        return [FrameResult(t.node_id, t.frame, "failure", _worker["error"]) for t in tasks], {}
+        return [FrameResult(t.node_id, t.frame, "failure", _worker["error"], view=t.view) for t in tasks], {}
     ev: Evaluator = _worker["ev"]
     ev.calls.clear()
     ev.plan([(t.node_id, t.sample) for t in tasks])
@@ -114,7 +114,7 @@ class PoolExecutor:
             raise MidframeError(f"a worker process died ({exc}); {len(collected)} of {len(tasks)} frames "
                                 "finished. Out of memory is the usual cause: try fewer --jobs or a smaller "
                                 "--memory") from None
-        collected.sort(key=lambda r: (r.node_id, r.frame))
+        collected.sort(key=lambda r: (r.node_id, r.frame, r.view))
         report.results = collected
         report.calls = calls
         return report

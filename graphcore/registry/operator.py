@@ -22,7 +22,10 @@ An operator never touches the cache, the graph or the command line. The evaluato
 - ``edge_samples``: if True, an input sample that ``needs`` asks for beyond the input's known
   frame or view range arrives as ``None`` (the last frame has no next one) instead of failing.
 - ``sources(params, sample)``: files this node reads at ``sample`` (provenance, overwrite guard).
-- ``targets(params, frames)``: files a sink writes for those frames (overwrite guard, resume).
+- ``targets(params, frames)``: files a sink writes for those frames (overwrite guard, resume);
+  for a ``per_view`` sink the items are ``(frame, view)`` pairs.
+- ``per_view(params)``: True when a sink writes one file per frame *and view* (``write`` with a
+  ``view_token``): the planner then makes a task for every view of the sink's view range.
 - ``canonical_sample(params, sample)``: the sample whose result this one equals (``read`` of a
   still: the same at every frame; a frame sequence: the same at every view), so the cache serves it.
 - ``check_links(params, connected)``: problems (``OpError`` objects, returned, not raised) that
@@ -165,8 +168,8 @@ class Operator:
         Longer help for ``midframe ops NAME``: what the channels are, references.
     outputs : str
         Words on the output channels.
-    needs, identity, frames, sources, targets, check_links : optional callables, see the module
-        docstring.
+    needs, identity, frames, sources, targets, per_view, check_links : optional callables, see the
+        module docstring.
     sink : bool
         True for operators that write files (``write``); the CLI renders every sink.
     cacheable : bool
@@ -188,7 +191,8 @@ class Operator:
     frames: Callable[[Any, Mapping[str, FrameRange | None]], FrameRange | None] | None = None
     views: Callable[[Any, Mapping[str, FrameRange | None]], FrameRange | None] | None = None
     sources: Callable[[Any, Sample], Sequence[str]] | None = None
-    targets: Callable[[Any, Sequence[int]], Sequence[str]] | None = None
+    targets: Callable[[Any, Sequence[Any]], Sequence[str]] | None = None
+    per_view: Callable[[Any], bool] | None = None
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
     edge_samples: bool = False
     needs_ranges: bool = False

@@ -1,6 +1,6 @@
 """``view-path``: which (source time, source view) each output frame shows.
 
-The output is a plain sequence over frames (one view): asked for output frame ``k``, the node asks
+In modes ``viewmorph`` and ``keys`` the output is a plain sequence over frames (one view): asked for output frame ``k``, the node asks
 its input for the image at the exact sample ``(time(k), view(k))`` and returns it unchanged. A
 whole-number view (and time) is a real camera image, passed through bit for bit; a fractional one
 is an in-between, built upstream (in the shipped templates by `flow-estimate`, `vector-smooth`,
@@ -14,6 +14,11 @@ Modes (``first_output`` numbers the output, default 1):
   input's first camera, so camera ``j`` of a rig numbered ``1..N`` lands on output
   ``first_output + (j - 1) * (between + 1)``, and the output runs
   ``first_output .. first_output + (N - first_view) * (between + 1)``.
+- ``views``: for rigs or stereo pairs that recorded sequences: at every source frame the output
+  has views numbered from ``first_output``, the cameras with ``between`` in-between views after
+  each one but the last: output view ``v`` at frame ``f`` shows source view
+  ``first_view + (v - first_output) / (between + 1)`` at time ``f``. A ``write`` with a
+  ``view_token`` writes one sequence per output view.
 - ``keys``: a path through views and time together. Keys ``[output_frame, view, time]``
   (absolute numbers; ``[output_frame, view]`` keys use the source time below), interpolated per
   coordinate ``linear`` or ``smooth`` (monotone cubic Hermite, Fritsch & Carlson 1980 with the
@@ -70,19 +75,23 @@ class ViewPathParams(BaseModel):
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
-    mode: Literal["viewmorph", "keys"] = Field(
+    mode: Literal["viewmorph", "keys", "views"] = Field(
         "viewmorph", description="'viewmorph': walk through the rig's cameras at one source time with "
                                  "'between' in-between views after each camera but the last; 'keys': a "
-                                 "keyed path through views and time.")
+                                 "keyed path through views and time; 'views': at every source frame, "
+                                 "the cameras and 'between' in-between views after each but the last, "
+                                 "as output views numbered from first_output (stereo or rig sequences, "
+                                 "written per view by a write with a view_token).")
     between: int = Field(
         1, ge=0, le=10000,
-        description="Mode 'viewmorph': in-between views after each camera but the last (0 = the "
-                    "cameras only).")
+        description="Modes 'viewmorph' and 'views': in-between views after each camera but the last "
+                    "(0 = the cameras only).")
     first_output: int = Field(
-        1, description="Mode 'viewmorph': the output frame number that shows the first view.")
+        1, description="Mode 'viewmorph': the output frame number that shows the first view; mode "
+                       "'views': the number of the first output view.")
     first_view: Number | None = Field(
-        None, description="Mode 'viewmorph': the view the output starts at (may be fractional, e.g. "
-                          "'3/2'). Default: the input's first camera.")
+        None, description="Modes 'viewmorph' and 'views': the view the output starts at (may be "
+                          "fractional, e.g. '3/2'). Default: the input's first camera.")
     time: Number | None = Field(
         None, description="Source time shown (mode 'viewmorph', and keys without a time). Default: "
                           "the input's first frame, or 0 when the input has no frame range (a rig of "
@@ -128,8 +137,10 @@ class ViewPathParams(BaseModel):
     def _check(self) -> "ViewPathParams":
         if self.mode == "keys" and self.keys is None:
             raise ValueError("mode 'keys' needs 'keys': [[output_frame, view, time], ...]")
-        if self.mode == "viewmorph" and self.keys is not None:
+        if self.mode != "keys" and self.keys is not None:
             raise ValueError("'keys' belong to mode 'keys'; set mode to 'keys' or remove them")
+        if self.mode == "views" and self.time is not None:
+            raise ValueError("mode 'views' shows every source frame at its own time; remove 'time'")
         return self
 
 
@@ -180,6 +191,8 @@ def path_point(params: ViewPathParams, frame: Fraction | int, *, views: FrameRan
     ``viewmorph`` when ``first_view`` is not set; ``frames`` gives the default time).
     """
     k = Fraction(frame)
+    if params.mode == "views":
+        raise ValueError("mode 'views' maps (frame, view) pairs: use views_point")
     if params.mode == "viewmorph":
         start = Fraction(params.first_view) if params.first_view is not None else Fraction(_rig(views).first)
         return start + (k - params.first_output) * _step(params), default_time(params, frames)
@@ -189,10 +202,18 @@ def path_point(params: ViewPathParams, frame: Fraction | int, *, views: FrameRan
     return view, time
 
 
+def views_point(params: ViewPathParams, frame: Fraction | int, view: Fraction | int, *,
+                views: FrameRange | None = None) -> tuple[Fraction, Fraction]:
+    """Mode ``views``: ``(source view, source time)`` of output view ``view`` at frame ``frame``:
+    ``first_view + (view - first_output) / (between + 1)`` at the same time."""
+    start = Fraction(params.first_view) if params.first_view is not None else Fraction(_rig(views).first)
+    return start + (Fraction(view) - params.first_output) * _step(params), Fraction(frame)
+
+
 def path_step(params: ViewPathParams, frame: Fraction | int) -> Fraction:
     """Distance in camera spacings between output ``frame``'s view and its neighbours' (the larger
     of the two sides in mode ``keys``)."""
-    if params.mode == "viewmorph":
+    if params.mode in ("viewmorph", "views"):
         return _step(params)
     k = Fraction(frame)
     here = path_point(params, k)[0]
@@ -217,10 +238,11 @@ def view_path_needs(params: ViewPathParams, sample: Sample,
     camera for the last view)."""
     rng = (ranges or {}).get("image")
     views, frames = (rng.views, rng.frames) if rng is not None else (None, None)
-    if params.mode == "viewmorph":
+    if params.mode != "keys":
         _rig(views)
-    view, time = _clamp(params, *path_point(params, sample.frame, views=views, frames=frames),
-                        views, frames)
+    point = (views_point(params, sample.frame, sample.view, views=views) if params.mode == "views"
+             else path_point(params, sample.frame, views=views, frames=frames))
+    view, time = _clamp(params, *point, views, frames)
     out = {"image": Sample(time, view)}
     if ranges is not None and "vectors" in ranges:
         vr = ranges["vectors"].views or views
@@ -237,7 +259,7 @@ def output_range(params: ViewPathParams, views: FrameRange | None) -> FrameRange
     if params.mode == "keys":
         xs = [k[0] for k in params.keys or ()]
         return FrameRange(int(xs[0]), int(xs[-1]))
-    rig = _rig(views)
+    rig = _rig(views)     # viewmorph: output frames; views: output views (same numbering rule)
     start = Fraction(params.first_view) if params.first_view is not None else Fraction(rig.first)
     span = (rig.last - start) * (params.between + 1)
     return FrameRange(params.first_output, params.first_output + math.floor(span))
@@ -250,7 +272,7 @@ def _check_inside(params: ViewPathParams, views: FrameRange | None, frames: Fram
                       fix=f"choose a time within {frames}")
     if params.out_of_range == "hold":
         return
-    if params.mode == "viewmorph":
+    if params.mode in ("viewmorph", "views"):
         if views is not None and params.first_view is not None:
             if not views.first <= Fraction(params.first_view) <= views.last:
                 raise OpError(f"first_view {params.first_view} is outside the rig's cameras {views}",
@@ -277,19 +299,26 @@ def _frames(params: ViewPathParams, inputs: Mapping[str, Any]) -> FrameRange | N
     else:
         frames, views, known = src, None, False
     _check_inside(params, views, frames)
+    if params.mode == "views":
+        return frames                  # every source frame, at its own time
     if params.mode == "viewmorph" and not known:
         return None
     return output_range(params, views)
 
 
-def _views(params: ViewPathParams, inputs: Mapping[str, Any]) -> None:
-    """The output is one sequence of frames, not a rig."""
-    return None
+def _views(params: ViewPathParams, inputs: Mapping[str, Any]) -> FrameRange | None:
+    """Mode ``views``: the output views; otherwise the output is one sequence of frames, not a rig."""
+    if params.mode != "views":
+        return None
+    src = inputs.get("image")
+    if not isinstance(src, InputRange):
+        return None
+    return output_range(params, src.views)
 
 
 def _canonical_sample(params: ViewPathParams, sample: Sample) -> Sample:
-    """The output has one view: every view of it is the same image."""
-    return Sample(sample.frame, 0)
+    """Modes ``viewmorph`` and ``keys`` have one output view: every view of it is the same image."""
+    return sample if params.mode == "views" else Sample(sample.frame, 0)
 
 
 def view_path(params: ViewPathParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
@@ -320,6 +349,11 @@ def view_path(params: ViewPathParams, inputs: Mapping[str, Any], ctx: OpContext)
     if image is None:
         field = "keys" if params.mode == "keys" else "first_view"
         where = "a view or time"
+        if params.mode == "views":
+            raise OpError(f"output view {ctx.sample.view} at frame {ctx.sample.frame} lies outside the "
+                          "rig or its frames", field="first_view",
+                          fix="render only the views and frames the rig has (leave --frames out), or "
+                              "set out_of_range to 'hold'")
         if params.mode == "keys":
             view = path_point(params, ctx.sample.frame)[0]
             where = f"view {view}" + ("" if params.keys and len(params.keys[0]) == 2 else " (or a time)")
@@ -333,13 +367,15 @@ def view_path(params: ViewPathParams, inputs: Mapping[str, Any], ctx: OpContext)
                           field="vectors", fix="connect a vector-smooth node with axis 'view' to 'vectors'")
         step = path_step(params, ctx.sample.frame)
         p = measure_parallax(vectors, float(step))
+        at = (f"output frame {ctx.sample.frame} view {ctx.sample.view}" if params.mode == "views"
+              else f"output frame {ctx.sample.frame}")
         over = []
         if p.overall > params.parallax_limit:
             over.append(f"{p.overall:.2f} % of the image width (limit {params.parallax_limit:g} %)")
         if p.positive > params.positive_parallax_limit:
             over.append(f"{p.positive:.2f} % behind the screen (limit {params.positive_parallax_limit:g} %)")
         if over:
-            ctx.warn(f"output frame {ctx.sample.frame}: screen parallax between adjacent views reaches "
+            ctx.warn(f"{at}: screen parallax between adjacent views reaches "
                      f"{' and '.join(over)}; uncomfortable to watch as stereo (eye strain); use more "
                      "in-between views or a narrower pair, and follow the production's stereo rules")
     return image

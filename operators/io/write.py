@@ -30,6 +30,7 @@ from graphcore.errors import OpError
 from graphcore.image import Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from operators.io import colorspace, exr, raster, sequence
+from operators.io.read import fill_view
 from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
                                   extension, resolved)
 
@@ -68,6 +69,11 @@ class WriteParams(BaseModel):
         "PNG/TIFF/JPEG, where one name writes grey and four names write RGB + alpha."))
     axis: Literal["frame", "view"] = Field("frame", description=(
         "Which sample coordinate numbers the files: 'frame' (time) or 'view' (camera)."))
+    view_token: str | None = Field(None, description=(
+        "For views of a rig or between stereo eyes written as one sequence per view: the token in "
+        "'path' that holds the view number, the other token being the frame, e.g. "
+        "'out/view%02d/sh010.%04d.exr' with view_token '%02d' (forms: %d, %0Nd, a run of #). The "
+        "render then writes every view of the input at every frame; 'axis' stays 'frame'."))
     colorspace: str | None = Field(None, description=(
         "Colour space to write in, by name in an OpenColorIO config (ocio_config, else the OCIO "
         "environment variable): colour is converted to it from the config's scene_linear role, "
@@ -91,7 +97,31 @@ class WriteParams(BaseModel):
     @field_validator("path")
     @classmethod
     def valid_path(cls, v: str) -> str:
-        return check_pattern(v)
+        try:
+            return check_pattern(v)
+        except ValueError as exc:
+            if "more than one frame token" in str(exc):
+                return v  # a frame and a view token: checked with view_token below
+            raise
+
+    @model_validator(mode="after")
+    def _two_numbers(self) -> "WriteParams":
+        if self.view_token is None:
+            try:
+                check_pattern(self.path)
+            except ValueError as exc:
+                raise ValueError(f"{exc}; if one of them numbers the views, name it in view_token "
+                                 "(e.g. '%02d')") from None
+            return self
+        if self.axis != "frame":
+            raise ValueError("with view_token the path's other token numbers frames: set axis to "
+                             "'frame' (the view comes from view_token)")
+        per_view = fill_view(self.path, self.view_token, 1)
+        check_pattern(per_view)
+        if not sequence.is_sequence(per_view):
+            raise ValueError(f"path {self.path!r} has no frame token besides the view_token "
+                             f"{self.view_token!r}; give both, e.g. 'out/view%02d/shot.%04d.exr'")
+        return self
 
     @field_validator("channels")
     @classmethod
@@ -124,8 +154,16 @@ def atomic_write(target: str, write: Any) -> None:
         raise
 
 
-def _target(params: WriteParams, number: Any) -> str:
-    pattern = sequence.parse(params.path)
+def _target(params: WriteParams, number: Any, view: Any = 0) -> str:
+    path = params.path
+    if params.view_token is not None:
+        if view.denominator != 1:
+            raise OpError(f"cannot write at fractional view {view}: files are numbered by integer "
+                          "views", file=params.path, field="view_token",
+                          fix="ask this write node for integer views (a view-path upstream maps them "
+                              "to fractional source views)")
+        path = fill_view(path, params.view_token, int(view))
+    pattern = sequence.parse(path)
     if number.denominator != 1:
         raise OpError(f"cannot write at fractional {params.axis} {number}: written files are "
                       f"numbered by integer {params.axis}s", file=params.path, field="axis",
@@ -134,13 +172,22 @@ def _target(params: WriteParams, number: Any) -> str:
     return pattern.format(int(number))
 
 
-def _targets(params: WriteParams, frames: Sequence[int]) -> list[str]:
+def _targets(params: WriteParams, frames: Sequence[Any]) -> list[str]:
+    """Files written for ``frames``: frame numbers, or ``(frame, view)`` pairs with a view_token."""
     out: list[str] = []
-    for f in frames:
-        p = os.path.abspath(sequence.format_path(params.path, int(f)))
+    for item in frames:
+        if params.view_token is not None:
+            f, v = item
+            p = os.path.abspath(sequence.format_path(fill_view(params.path, params.view_token, int(v)), int(f)))
+        else:
+            p = os.path.abspath(sequence.format_path(params.path, int(item)))
         if p not in out:
             out.append(p)
     return out
+
+
+def _per_view(params: WriteParams) -> bool:
+    return params.view_token is not None
 
 
 def _guard(target: str, ctx: OpContext) -> None:
@@ -188,7 +235,7 @@ def _write_exr(params: WriteParams, image: Image, tmp: str, target: str, ctx: Op
 
 def _compute(params: WriteParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     image = inputs["image"]
-    target = _target(params, axis_number(params.axis, ctx.sample))
+    target = _target(params, axis_number(params.axis, ctx.sample), ctx.sample.view)
     _guard(target, ctx)
     is_exr = extension(target) in EXR_EXTENSIONS
     out = image
@@ -235,5 +282,6 @@ WRITE = Operator(
     doc=__doc__ or "",
     outputs="The input image, unchanged.",
     targets=_targets,
+    per_view=_per_view,
     sink=True,
 )

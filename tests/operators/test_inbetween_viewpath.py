@@ -94,6 +94,42 @@ def test_output_is_one_view_and_the_image_passes_unchanged():
     assert VIEW_PATH.canonical_sample(morph(), Sample(5, 2)) == Sample(5, 0)
 
 
+# -- views (sequences of a rig or a stereo pair, one output sequence per view) ---------------------------
+def test_views_mode_maps_each_output_view_at_its_own_frame():
+    """between 2 on cameras 1..3 over frames 1001..1010, worked by hand: output view v at frame f shows
+    view 1 + (v - 1) / 3 at time f; outputs are the source frames and views 1..7."""
+    seq = InputRange(FrameRange(1001, 1010), RIG3)
+    p = ViewPathParams(mode="views", between=2)
+    for v, view in ((1, F(1)), (2, F(4, 3)), (4, F(2)), (7, F(3))):
+        assert view_path_needs(p, Sample(1004, v), {"image": seq}) == {"image": Sample(1004, view)}
+    assert VIEW_PATH.frames(p, {"image": seq}) == FrameRange(1001, 1010)
+    assert VIEW_PATH.views(p, {"image": seq}) == FrameRange(1, 7)
+    assert VIEW_PATH.canonical_sample(p, Sample(1004, 3)) == Sample(1004, 3)   # every view its own
+    assert path_step(p, 1004) == F(1, 3)                                          # parallax step
+    with pytest.raises(pydantic.ValidationError, match="remove 'time'"):
+        ViewPathParams(mode="views", time=1001)
+
+
+def test_write_view_token_names_a_file_per_frame_and_view(tmp_path):
+    from operators.io.write import WRITE, WriteParams
+
+    p = WriteParams(path=str(tmp_path / "v%02d" / "sh.%04d.exr"), view_token="%02d")
+    assert WRITE.per_view(p) and not WRITE.per_view(WriteParams(path=str(tmp_path / "sh.%04d.exr")))
+    assert WRITE.targets(p, [(1001, 2), (1002, 2)]) == [str(tmp_path / "v02" / "sh.1001.exr"),
+                                                       str(tmp_path / "v02" / "sh.1002.exr")]
+    img = noise_image(4, 5, seed=1)
+    run_op(WRITE, p, {"image": img}, sample=Sample(1001, 3))
+    assert (tmp_path / "v03" / "sh.1001.exr").is_file()
+    with pytest.raises(OpError) as err:
+        run_op(WRITE, p, {"image": img}, sample=Sample(1001, F(5, 2)))
+    assert err.value.field == "view_token"
+    for bad, words in (({"view_token": "%03d"}, "does not occur"),
+                       ({"path": str(tmp_path / "v%02d.exr"), "view_token": "%02d"}, "no frame token"),
+                       ({"view_token": None}, "view_token")):
+        with pytest.raises(pydantic.ValidationError, match=words):
+            WriteParams(**{"path": str(tmp_path / "v%02d" / "sh.%04d.exr"), **bad})
+
+
 # -- keys ---------------------------------------------------------------------------------------------
 def test_keys_linear_known_answers():
     """Sweep cameras 1 -> 3 over outputs 1..9 while time runs 1001 -> 1002; by hand:
