@@ -82,6 +82,16 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a graph without rendering")
     _add_graph_args(p)
 
+    p = sub.add_parser("chunks", help="split a render into frame chunks for a farm queue")
+    _add_graph_args(p)
+    p.add_argument("--frames", type=_frames_arg, metavar="A-B", help="frames to split (default: all the "
+                   "sources have)")
+    p.add_argument("--size", type=_positive_int, required=True, metavar="N", help="frames per chunk")
+    p.add_argument("--json", action="store_true", help="a JSON job list instead of command lines")
+    p.add_argument("--cache", metavar="DIR", help="shared disk cache folder, passed to every chunk's "
+                   "command (neighbouring chunks then compute shared vectors once)")
+    p.add_argument("--jobs", type=_positive_int, metavar="N", help="worker processes per chunk, passed on")
+
     p = sub.add_parser("ops", help="list operators, or show one")
     p.add_argument("name", nargs="?", help="operator to describe")
     p.add_argument("--markdown", action="store_true", help="the full operator reference as Markdown")
@@ -145,6 +155,49 @@ def cmd_check(args: argparse.Namespace) -> int:
     check_targets(ev, tasks, protected_paths(ev))
     span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
     print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
+    return EXIT_OK
+
+
+def cmd_chunks(args: argparse.Namespace) -> int:
+    import os
+    import shlex
+
+    from graphcore.evaluate import Evaluator
+    from graphcore.execute.chunks import plan_chunks
+    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.validate import load_graph
+
+    reg = _registry(args.plugins)
+    loaded = load_graph(args.graph, sets=args.sets, defaults=args.defaults, registry=reg)
+    _print_warnings(loaded.warnings)
+    ev = Evaluator(loaded.graph, reg)
+    if not ev.sinks():
+        raise InputError("nothing to render: the graph has no write node", file=args.graph, field="nodes",
+                         fix="add a write node")
+    frames = output_frames(ev, args.frames)
+    check_targets(ev, make_tasks(ev, frames), protected_paths(ev))
+    base = ["midframe", "run", os.path.abspath(args.graph)]
+    for item in args.sets:
+        base += ["--set", item]
+    if args.defaults:
+        base += ["--defaults", os.path.abspath(args.defaults)]
+    for plugin in args.plugins:
+        base += ["--plugin", plugin]
+    if args.cache:
+        base += ["--cache", os.path.abspath(args.cache)]
+    if args.jobs:
+        base += ["--jobs", str(args.jobs)]
+    chunks = plan_chunks(ev, frames, args.size, base)
+    if args.json:
+        doc = {"schema": "midframe.chunks", "version": 1, "graph": os.path.abspath(args.graph),
+               "frames": [frames[0], frames[-1]], "size": args.size, "chunks": [c.as_json() for c in chunks]}
+        print(json.dumps(doc, indent=2))
+        return EXIT_OK
+    for c in chunks:
+        src = "; ".join(f"{nid} {r['frames']}" + (f" views {r['views']}" if "views" in r else "")
+                        for nid, r in c.reads.items())
+        print(f"# chunk {c.index + 1}/{len(chunks)}: frames {c.first}-{c.last}; reads {src or 'no files'}")
+        print(shlex.join(c.command))
     return EXIT_OK
 
 
@@ -264,8 +317,8 @@ def cmd_vectors(args: argparse.Namespace) -> int:
     return run_vectors(args)
 
 
-COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "ops": cmd_ops, "schema": cmd_schema, "graph": cmd_graph,
-            "demo": cmd_demo}
+COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "chunks": cmd_chunks, "ops": cmd_ops,
+            "schema": cmd_schema, "graph": cmd_graph, "demo": cmd_demo}
 
 
 def main(argv: Sequence[str] | None = None) -> int:
