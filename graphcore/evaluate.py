@@ -287,7 +287,8 @@ class Evaluator:
                         sources=self.sources(nid, sample), path_nodes=self._path_nodes[nid],
                         warn=lambda msg, _nid=nid: self._warn(_nid, msg),
                         protected_paths=self.protected_paths,
-                        input_ranges=self._input_ranges(nid) if op.needs_ranges else {})
+                        input_ranges=self._input_ranges(nid) if op.needs_ranges else {},
+                        key=self.key(nid, sample) if op.sink else "")
         self.calls[nid] += 1
         try:
             result = op.compute(node.params, inputs, ctx)

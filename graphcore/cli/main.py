@@ -77,6 +77,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--cache", metavar="DIR", help="disk cache folder (shareable between runs and hosts)")
     p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB",
                    help="in-memory cache size, shared out between --jobs workers (default 2048 MB)")
+    p.add_argument("--resume", action="store_true", help="skip outputs already complete at their final "
+                   "path (EXR files whose provenance header carries this render's content key: same "
+                   "graph, params and source files)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress output")
 
     p = sub.add_parser("check", help="validate a graph without rendering")
@@ -187,6 +190,7 @@ def cmd_chunks(args: argparse.Namespace) -> int:
         base += ["--cache", os.path.abspath(args.cache)]
     if args.jobs:
         base += ["--jobs", str(args.jobs)]
+    base.append("--resume")           # a retried chunk keeps the frames it finished
     chunks = plan_chunks(ev, frames, args.size, base)
     if args.json:
         doc = {"schema": "midframe.chunks", "version": 1, "graph": os.path.abspath(args.graph),
@@ -209,7 +213,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     outcome = render(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, jobs=args.jobs,
                      cache_dir=args.cache, memory_bytes=args.memory << 20, plugins=args.plugins, registry=reg,
                      on_loaded=_print_warnings,
-                     on_start=lambda total: Progress(total, quiet=args.quiet))
+                     on_start=lambda total: Progress(total, quiet=args.quiet), resume=args.resume)
     report = outcome.report
     failed = report.failed
     if failed:
@@ -231,7 +235,9 @@ def cmd_run(args: argparse.Namespace) -> int:
     frames = len(outcome.frames)
     sequences = len({(r.node_id, r.view) for r in report.results})   # one per sink, per view of a per-view sink
     outputs = f" ({done} files in {sequences} sequences)" if done != frames else ""
-    print(f"midframe: rendered {frames} frame{'s' if frames != 1 else ''}{outputs}", file=sys.stderr)
+    skipped = len(report.skipped)
+    resumed = f"; {skipped} complete already, skipped" if skipped else ""
+    print(f"midframe: rendered {frames} frame{'s' if frames != 1 else ''}{outputs}{resumed}", file=sys.stderr)
     return EXIT_OK
 
 

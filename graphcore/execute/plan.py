@@ -14,7 +14,7 @@ from graphcore.evaluate import Evaluator, NodeFailure
 from graphcore.registry import FrameRange
 from graphcore.sample import Sample
 
-__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "output_frames", "protected_paths",
+__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "split_complete", "output_frames", "protected_paths",
            "check_targets", "render_task"]
 
 
@@ -38,7 +38,7 @@ class FrameResult:
 
     node_id: str
     frame: int
-    status: str  # "ok" | "input-error" | "failure"
+    status: str  # "ok" | "input-error" | "failure" | "skipped" (complete already, --resume)
     message: str = ""
     error: dict = field(default_factory=dict)  # InputError fields for input errors
     seconds: float = 0.0
@@ -58,7 +58,12 @@ class RunReport:
 
     @property
     def failed(self) -> list[FrameResult]:
-        return [r for r in self.results if r.status != "ok"]
+        return [r for r in self.results if r.status not in ("ok", "skipped")]
+
+    @property
+    def skipped(self) -> list[FrameResult]:
+        """Tasks ``--resume`` found complete at their final path."""
+        return [r for r in self.results if r.status == "skipped"]
 
     @property
     def exit_code(self) -> int:
@@ -151,6 +156,21 @@ def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -
                                  node_id=sink, field=f"nodes.{sink}.params.path",
                                  fix="give each write node its own path")
             seen[real] = sink
+
+
+def split_complete(ev: Evaluator, tasks: list[Task]) -> tuple[list[Task], list[FrameResult]]:
+    """``--resume``: the tasks still to render, and a ``skipped`` result for each task whose output
+    is already complete at its final path with the content key this render would give it (same
+    graph, params, operator versions and source files)."""
+    todo, done = [], []
+    for t in tasks:
+        op = ev.ops[t.node_id]
+        if op.complete is not None and op.complete(ev.graph.nodes[t.node_id].params, t.sample,
+                                                   ev.key(t.node_id, t.sample)):
+            done.append(FrameResult(t.node_id, t.frame, "skipped", "complete at its final path", view=t.view))
+        else:
+            todo.append(t)
+    return todo, done
 
 
 def render_task(ev: Evaluator, task: Task) -> FrameResult:

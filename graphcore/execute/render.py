@@ -12,7 +12,7 @@ from graphcore.cache import Cache, DiskCache, MemoryCache
 from graphcore.errors import GraphError, InputError
 from graphcore.evaluate import Evaluator
 from graphcore.execute.plan import (FrameResult, RunReport, check_targets, make_tasks, output_frames,
-                                    protected_paths)
+                                    protected_paths, split_complete)
 from graphcore.execute.pool import PoolExecutor
 from graphcore.execute.serial import SerialExecutor
 from graphcore.registry import FrameRange, Registry, default_registry
@@ -38,11 +38,13 @@ def render(source, *, sets: Iterable[str] = (), defaults: str | os.PathLike[str]
            memory_bytes: int = 2 << 30, plugins: Iterable[str] = (), registry: Registry | None = None,
            on_loaded: Callable[[list[GraphError]], None] | None = None,
            on_start: Callable[[int], Callable[[FrameResult], None] | None] | None = None,
-           file: str | None = None) -> Rendered:
+           file: str | None = None, resume: bool = False) -> Rendered:
     """Load and render a graph; returns what happened to every frame.
 
     Raises ``InputError`` (``GraphErrors``) before anything renders when the graph, its variables or
-    its output paths are invalid. Per-frame failures are in ``Rendered.report``.
+    its output paths are invalid. Per-frame failures are in ``Rendered.report``. With ``resume``,
+    outputs already complete at their final path with the content key this render would give them
+    are not rendered again (``skipped`` in the report).
     ``on_start(total)`` may return a per-frame progress callback.
     """
     registry = registry or default_registry()
@@ -66,10 +68,15 @@ def render(source, *, sets: Iterable[str] = (), defaults: str | os.PathLike[str]
     ev.protected_paths = protected_paths(ev)
     tasks = make_tasks(ev, wanted)
     check_targets(ev, tasks, ev.protected_paths)
+    skipped: list[FrameResult] = []
+    if resume:
+        tasks, skipped = split_complete(ev, tasks)
+        log.info("resume: %d of %d output file(s) complete already", len(skipped), len(skipped) + len(tasks))
     executor = SerialExecutor() if jobs <= 1 else PoolExecutor(jobs, memory_bytes=memory_bytes, plugins=plugins)
     log.info("rendering %d frame(s) %s-%s of %d output(s) with %d job(s)", len(wanted), wanted[0], wanted[-1],
              len(ev.sinks()), executor.jobs)
     progress = on_start(len(tasks)) if on_start is not None else None
-    report = executor.run(ev, tasks, progress)
+    report = executor.run(ev, tasks, progress) if tasks else RunReport()
+    report.results = sorted(skipped + report.results, key=lambda r: (r.node_id, r.frame, r.view))
     render_warnings = sorted({w for r in report.results for w in r.warnings})
     return Rendered(graph, wanted, report, loaded.warnings, render_warnings)

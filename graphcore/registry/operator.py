@@ -26,6 +26,9 @@ An operator never touches the cache, the graph or the command line. The evaluato
   for a ``per_view`` sink the items are ``(frame, view)`` pairs.
 - ``per_view(params)``: True when a sink writes one file per frame *and view* (``write`` with a
   ``view_token``): the planner then makes a task for every view of the sink's view range.
+- ``complete(params, sample, key)``: True when a sink's output at ``sample`` already exists at its
+  final path and was made with content key ``key`` (``write`` reads the key from the file's
+  provenance header); ``midframe run --resume`` skips such tasks.
 - ``canonical_sample(params, sample)``: the sample whose result this one equals (``read`` of a
   still: the same at every frame; a frame sequence: the same at every view), so the cache serves it.
 - ``check_links(params, connected)``: problems (``OpError`` objects, returned, not raised) that
@@ -127,6 +130,7 @@ class OpContext:
     warn: Callable[[str], None] = field(default=lambda msg: None)
     protected_paths: frozenset[str] = frozenset()  # files sinks must never replace (read sources)
     input_ranges: Mapping[str, InputRange] = field(default_factory=dict)  # filled for needs_ranges
+    key: str = ""                           # a sink's content key at this sample (for --resume)
 
     def provenance(self) -> dict[str, Any]:
         """The provenance record a sink writes into its file header."""
@@ -140,6 +144,7 @@ class OpContext:
             "view": str(self.sample.view),
             "nodes": list(self.path_nodes),
             "sources": list(self.sources),
+            "key": self.key,
         }
 
 
@@ -193,6 +198,7 @@ class Operator:
     sources: Callable[[Any, Sample], Sequence[str]] | None = None
     targets: Callable[[Any, Sequence[Any]], Sequence[str]] | None = None
     per_view: Callable[[Any], bool] | None = None
+    complete: Callable[[Any, Sample, str], bool] | None = None
     check_links: Callable[[Any, frozenset[str]], Sequence[Any]] | None = None
     edge_samples: bool = False
     needs_ranges: bool = False

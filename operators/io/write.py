@@ -190,6 +190,22 @@ def _per_view(params: WriteParams) -> bool:
     return params.view_token is not None
 
 
+def _complete(params: WriteParams, sample: Any, key: str) -> bool:
+    """Whether the file for ``sample`` exists and its provenance header carries content key ``key``
+    (only EXR files carry one: other formats are always rendered again)."""
+    try:
+        target = _target(params, axis_number(params.axis, sample), sample.view)
+    except OpError:
+        return False
+    if not key or extension(target) not in EXR_EXTENSIONS or not os.path.isfile(target):
+        return False
+    try:
+        record = exr.read_provenance(target)
+    except OpError:
+        return False                      # unreadable or damaged: render it again
+    return bool(record) and record.get("key") == key
+
+
 def _guard(target: str, ctx: OpContext) -> None:
     real = resolved(target)
     protected = {resolved(p) for p in (*ctx.protected_paths, *ctx.sources)}
@@ -283,5 +299,6 @@ WRITE = Operator(
     outputs="The input image, unchanged.",
     targets=_targets,
     per_view=_per_view,
+    complete=_complete,
     sink=True,
 )
