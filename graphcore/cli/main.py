@@ -66,6 +66,9 @@ def build_parser() -> argparse.ArgumentParser:
                                      "in-between frames from motion vectors, rendered from JSON graphs.")
     parser.add_argument("--version", action="version", version=f"midframe {__version__}")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="more log output")
+    parser.add_argument("--log-format", choices=("text", "json"), default="text",
+                        help="standard error as text (default) or one JSON object per line, for farm "
+                             "log scraping (events: log, frame, warning, error, summary)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
@@ -134,9 +137,18 @@ def _registry(plugins: Sequence[str]) -> Registry:
     return reg
 
 
+#: Set by main() for --log-format json.
+_JSON = False
+
+
 def _print_warnings(warnings) -> None:
     for w in warnings:
-        print(f"midframe: warning: {w.describe()}", file=sys.stderr)
+        if _JSON:
+            from graphcore.cli.jsonlog import emit, error_fields
+
+            emit("warning", "warning", **error_fields(w))
+        else:
+            print(f"midframe: warning: {w.describe()}", file=sys.stderr)
 
 
 # -- commands --------------------------------------------------------------------------------------
@@ -205,17 +217,35 @@ def cmd_chunks(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
-def cmd_run(args: argparse.Namespace) -> int:
+def _progress(args: argparse.Namespace):
     from graphcore.cli.progress import Progress
+
+    if _JSON:
+        from graphcore.cli.jsonlog import JsonProgress
+
+        return lambda total: JsonProgress(total)
+    return lambda total: Progress(total, quiet=args.quiet)
+
+
+def cmd_run(args: argparse.Namespace) -> int:
     from graphcore.execute.render import render
 
     reg = _registry(args.plugins)
     outcome = render(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, jobs=args.jobs,
                      cache_dir=args.cache, memory_bytes=args.memory << 20, plugins=args.plugins, registry=reg,
                      on_loaded=_print_warnings,
-                     on_start=lambda total: Progress(total, quiet=args.quiet), resume=args.resume)
+                     on_start=_progress(args), resume=args.resume)
     report = outcome.report
     failed = report.failed
+    if _JSON:
+        from graphcore.cli.jsonlog import emit
+
+        emit("summary", "error" if failed else "info", frames=len(outcome.frames), files=len(report.results),
+             skipped=len(report.skipped),
+             failed=[{"frame": r.frame, "view": r.view, "node": r.node_id, "status": r.status,
+                      "message": r.message} for r in failed],
+             exit=report.exit_code)
+        return report.exit_code
     if failed:
         def where(results) -> str:
             if any(r.view for r in results):      # per-view files: name each (frame, view)
@@ -333,14 +363,30 @@ def main(argv: Sequence[str] | None = None) -> int:
     level = logging.WARNING - 10 * min(args.verbose, 2)
     if args.command in ("run", "demo"):
         level = min(level, logging.INFO)
-    logging.basicConfig(level=level, format="midframe: %(levelname)s: %(message)s", stream=sys.stderr)
+    global _JSON
+    _JSON = args.log_format == "json"
+    if _JSON:
+        from graphcore.cli.jsonlog import JsonFormatter, emit, error_fields
+
+        handler = logging.StreamHandler(sys.stderr)
+        handler.setFormatter(JsonFormatter())
+        logging.basicConfig(level=level, handlers=[handler], force=True)
+    else:
+        logging.basicConfig(level=level, format="midframe: %(levelname)s: %(message)s", stream=sys.stderr)
     try:
         return COMMANDS[args.command](args)
     except GraphErrors as exc:
-        print(exc.describe(), file=sys.stderr)
+        if _JSON:
+            emit("error", "error", message=exc.message, file=exc.file, exit=EXIT_INVALID,
+                 problems=[error_fields(e) for e in exc.errors])
+        else:
+            print(exc.describe(), file=sys.stderr)
         return EXIT_INVALID
     except InputError as exc:
-        print(f"midframe: error: {exc.describe()}", file=sys.stderr)
+        if _JSON:
+            emit("error", "error", exit=EXIT_INVALID, **error_fields(exc))
+        else:
+            print(f"midframe: error: {exc.describe()}", file=sys.stderr)
         return EXIT_INVALID
     except KeyboardInterrupt:
         print("midframe: interrupted", file=sys.stderr)
@@ -349,7 +395,10 @@ def main(argv: Sequence[str] | None = None) -> int:
         return EXIT_OK
     except MidframeError as exc:
         log.debug("internal failure", exc_info=True)
-        print(f"midframe: internal error: {exc}", file=sys.stderr)
+        if _JSON:
+            emit("error", "error", message=f"internal error: {exc}", exit=EXIT_FAILURE)
+        else:
+            print(f"midframe: internal error: {exc}", file=sys.stderr)
         return EXIT_FAILURE
     except Exception:  # a bug: say so, with the traceback, and exit 1
         import traceback
