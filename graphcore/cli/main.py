@@ -52,6 +52,22 @@ def _positive_int(text: str) -> int:
     return n
 
 
+def _size_arg(text: str) -> int:
+    m = re.fullmatch(r"\s*(\d+(?:\.\d+)?)\s*([KMGT]?)i?B?\s*", text, flags=re.IGNORECASE)
+    if not m:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a size; write e.g. 500M or 20G")
+    scale = {"": 1, "K": 1 << 10, "M": 1 << 20, "G": 1 << 30, "T": 1 << 40}[m.group(2).upper()]
+    return int(float(m.group(1)) * scale)
+
+
+def _human(n: float) -> str:
+    for unit in ("B", "KB", "MB", "GB"):
+        if n < 1024:
+            return f"{n:.1f} {unit}" if unit != "B" else f"{int(n)} B"
+        n /= 1024
+    return f"{n:.1f} TB"
+
+
 def _add_graph_args(p: argparse.ArgumentParser) -> None:
     p.add_argument("graph", help="graph file (JSON)")
     p.add_argument("--set", dest="sets", action="append", default=[], metavar="NAME=VALUE",
@@ -78,6 +94,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "sources have)")
     p.add_argument("--jobs", type=_positive_int, default=1, metavar="N", help="worker processes (default 1)")
     p.add_argument("--cache", metavar="DIR", help="disk cache folder (shareable between runs and hosts)")
+    p.add_argument("--cache-limit", type=_size_arg, metavar="SIZE", help="after the render, prune the disk "
+                   "cache to this size (least recently used first), e.g. 50G")
     p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB",
                    help="in-memory cache size, shared out between --jobs workers (default 2048 MB)")
     p.add_argument("--resume", action="store_true", help="skip outputs already complete at their final "
@@ -87,6 +105,15 @@ def build_parser() -> argparse.ArgumentParser:
 
     p = sub.add_parser("check", help="validate a graph without rendering")
     _add_graph_args(p)
+
+    p = sub.add_parser("cache", help="inspect or prune a disk cache folder")
+    p.add_argument("action", choices=("stats", "prune"), help="stats: entries and size; prune: remove the "
+                   "least recently used entries down to --max-size, and stale temporary files")
+    p.add_argument("dir", help="the cache folder (as given to --cache)")
+    p.add_argument("--max-size", type=_size_arg, metavar="SIZE", help="prune: keep at most this much, "
+                   "e.g. 500M, 20G (default: only stale temporary files are removed)")
+    p.add_argument("--verify", action="store_true", help="stats: also check every entry's checksum "
+                   "(reads everything) and remove damaged ones")
 
     p = sub.add_parser("chunks", help="split a render into frame chunks for a farm queue")
     _add_graph_args(p)
@@ -217,6 +244,44 @@ def cmd_chunks(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def cmd_cache(args: argparse.Namespace) -> int:
+    import os
+    import time
+
+    from graphcore.cache import DiskCache
+
+    if not os.path.isdir(args.dir):
+        raise UsageError("no such cache folder", file=args.dir, field="dir",
+                         fix="name the folder given to --cache")
+    cache = DiskCache(args.dir)
+    if args.action == "prune":
+        removed, freed = cache.prune(args.max_size)
+        left = cache.entries()
+        print(f"{args.dir}: removed {removed} entries ({_human(freed)}); {len(left)} entries, "
+              f"{_human(sum(e[2] for e in left))} left")
+        return EXIT_OK
+    damaged = 0
+    if args.verify:
+        for _, meta_path, _, _ in cache.entries():
+            before = cache.stats.corrupt
+            cache.get(meta_path.stem)
+            damaged += cache.stats.corrupt - before
+    entries = cache.entries()
+    temps = list(cache.root.glob("??/.tmp-*"))
+    total = sum(e[2] for e in entries)
+    line = f"{args.dir}: {len(entries)} entries, {_human(total)}"
+    if entries:
+        now = time.time()
+        ages = sorted(now - e[3] for e in entries)
+        line += f"; last used {ages[0] / 3600:.1f} h to {ages[-1] / 3600:.1f} h ago"
+    if temps:
+        line += f"; {len(temps)} temporary files (unfinished writes)"
+    if args.verify:
+        line += f"; {damaged} damaged entries removed"
+    print(line)
+    return EXIT_OK
+
+
 def _progress(args: argparse.Namespace):
     from graphcore.cli.progress import Progress
 
@@ -237,6 +302,14 @@ def cmd_run(args: argparse.Namespace) -> int:
                      on_start=_progress(args), resume=args.resume)
     report = outcome.report
     failed = report.failed
+    if args.cache_limit is not None and args.cache:
+        from graphcore.cache import DiskCache
+
+        removed, freed = DiskCache(args.cache).prune(args.cache_limit)
+        if removed:
+            log.info("cache pruned to %s: %d entries removed (%s)", _human(args.cache_limit), removed, _human(freed))
+    elif args.cache_limit is not None:
+        raise UsageError("--cache-limit needs --cache DIR", field="--cache-limit", fix="add --cache DIR")
     if _JSON:
         from graphcore.cli.jsonlog import emit
 
@@ -353,7 +426,8 @@ def cmd_vectors(args: argparse.Namespace) -> int:
     return run_vectors(args)
 
 
-COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "chunks": cmd_chunks, "ops": cmd_ops,
+COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "chunks": cmd_chunks, "cache": cmd_cache,
+            "ops": cmd_ops,
             "schema": cmd_schema, "graph": cmd_graph, "demo": cmd_demo}
 
 
