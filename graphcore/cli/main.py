@@ -98,6 +98,9 @@ def build_parser() -> argparse.ArgumentParser:
                    "cache to this size (least recently used first), e.g. 50G")
     p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB",
                    help="in-memory cache size, shared out between --jobs workers (default 2048 MB)")
+    p.add_argument("--scheduler", metavar="ADDR", help="render on Dask distributed: tcp://HOST:PORT of a running "
+                   "scheduler (its workers need this midframe installed), or local:N for a local cluster "
+                   "of N worker processes")
     p.add_argument("--resume", action="store_true", help="skip outputs already complete at their final "
                    "path (EXR files whose provenance header carries this render's content key: same "
                    "graph, params and source files)")
@@ -299,7 +302,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     outcome = render(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, jobs=args.jobs,
                      cache_dir=args.cache, memory_bytes=args.memory << 20, plugins=args.plugins, registry=reg,
                      on_loaded=_print_warnings,
-                     on_start=_progress(args), resume=args.resume)
+                     on_start=_progress(args), resume=args.resume, scheduler=args.scheduler)
     report = outcome.report
     failed = report.failed
     if args.cache_limit is not None and args.cache:

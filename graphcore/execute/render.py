@@ -38,11 +38,13 @@ def render(source, *, sets: Iterable[str] = (), defaults: str | os.PathLike[str]
            memory_bytes: int = 2 << 30, plugins: Iterable[str] = (), registry: Registry | None = None,
            on_loaded: Callable[[list[GraphError]], None] | None = None,
            on_start: Callable[[int], Callable[[FrameResult], None] | None] | None = None,
-           file: str | None = None, resume: bool = False) -> Rendered:
+           file: str | None = None, resume: bool = False, scheduler: str | None = None) -> Rendered:
     """Load and render a graph; returns what happened to every frame.
 
     Raises ``InputError`` (``GraphErrors``) before anything renders when the graph, its variables or
-    its output paths are invalid. Per-frame failures are in ``Rendered.report``. With ``resume``,
+    its output paths are invalid. Per-frame failures are in ``Rendered.report``. ``scheduler``
+    (``tcp://HOST:PORT`` or ``local:N``) renders on Dask distributed instead of ``jobs`` local
+    processes (`graphcore.execute.cluster`). With ``resume``,
     outputs already complete at their final path with the content key this render would give them
     are not rendered again (``skipped`` in the report).
     ``on_start(total)`` may return a per-frame progress callback.
@@ -72,9 +74,16 @@ def render(source, *, sets: Iterable[str] = (), defaults: str | os.PathLike[str]
     if resume:
         tasks, skipped = split_complete(ev, tasks)
         log.info("resume: %d of %d output file(s) complete already", len(skipped), len(skipped) + len(tasks))
-    executor = SerialExecutor() if jobs <= 1 else PoolExecutor(jobs, memory_bytes=memory_bytes, plugins=plugins)
-    log.info("rendering %d frame(s) %s-%s of %d output(s) with %d job(s)", len(wanted), wanted[0], wanted[-1],
-             len(ev.sinks()), executor.jobs)
+    if scheduler:
+        from graphcore.execute.cluster import DaskExecutor
+
+        executor = DaskExecutor(scheduler, memory_bytes=memory_bytes, plugins=plugins)
+    elif jobs <= 1:
+        executor = SerialExecutor()
+    else:
+        executor = PoolExecutor(jobs, memory_bytes=memory_bytes, plugins=plugins)
+    log.info("rendering %d frame(s) %s-%s of %d output(s) with %s", len(wanted), wanted[0], wanted[-1],
+             len(ev.sinks()), f"Dask ({scheduler})" if scheduler else f"{executor.jobs} job(s)")
     progress = on_start(len(tasks)) if on_start is not None else None
     report = executor.run(ev, tasks, progress) if tasks else RunReport()
     report.results = sorted(skipped + report.results, key=lambda r: (r.node_id, r.frame, r.view))
