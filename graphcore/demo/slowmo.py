@@ -67,12 +67,17 @@ def sheet_frames(first: int) -> list[int]:
     return [inb[0], inb[-1]]
 
 
-def run(scene: Any, p: dict[str, str], first: int, view: int, repo_graphs: Path, jobs: int, cache: str | None = None) -> dict[str, Any]:
-    """Render the truth, both retimes and the vector pictures; measure; return the record."""
-    from graphcore.demo.scene import Scene
+def run(scene: Any, p: dict[str, str], first: int, view: int, repo_graphs: Path, jobs: int,
+        cache: str | None = None) -> dict[str, Any]:
+    """Render the truth, both retimes and the vector pictures; measure; return the record.
+
+    ``scene`` is the demo's :class:`graphcore.demo.scene.Scene`, ``p`` the demo's file patterns
+    (``dst``: the composite used as the plate, ``matte``, ``bg``, and :func:`paths`), ``first``
+    the plate's first frame, ``view`` its camera, ``cache`` a disk-cache folder shared by the
+    renders (the vector pictures reuse retime.json's vectors from it).
+    """
     from operators.vectors.color import flow_to_codes
 
-    assert isinstance(scene, Scene)
     frames = output_frames(first)
     say(f"demo: slow motion: source frames {SOURCE_FIRST}-{SOURCE_LAST} at slowdown {SLOWDOWN} -> output "
         f"frames {frames[0]}-{frames[-1]}, the true in-betweens to {Path(p['retime_truth']).parent}")
@@ -91,7 +96,8 @@ def run(scene: Any, p: dict[str, str], first: int, view: int, repo_graphs: Path,
                   "slowdown": str(SLOWDOWN)}, jobs, span)
 
     # vector pictures of the source pairs the contact sheet shows: estimated (through the
-    # engine; retime.json's vectors, found in the demo's cache) and true (the scene's analytic motion), same colour code and scale
+    # engine; retime.json's vectors, found in the demo's cache) and true (the scene's analytic
+    # motion), same colour code and scale
     pairs = sorted({int(source_time(k, first)) for k in sheet_frames(first)})
     write_json_atomic(p["retime_vectors_graph"], vectors_graph("frame", VECTOR_MAX))
     for f in pairs:

@@ -86,7 +86,8 @@ def sheet_frames() -> list[int]:
     return [1 + (BETWEEN + 1) + (BETWEEN + 1) // 2, 1 + 3 * (BETWEEN + 1) + (BETWEEN + 1) // 2]
 
 
-def run(scene: Any, p: dict[str, str], repo_graphs: Path, jobs: int, cache: str | None = None) -> dict[str, Any]:
+def run(scene: Any, p: dict[str, str], repo_graphs: Path, jobs: int,
+        cache: str | None = None) -> dict[str, Any]:
     """Write the rig and the truth, render both sweeps and the vector pictures, measure."""
     tag = {"midframe.demo": f"the paper fair at frame {MOMENT}, a rig of {CAMERAS} imperfect cameras"}
     say(f"demo: sweep: {CAMERAS} imperfect cameras at frame {MOMENT} to {Path(p['rig']).parent}")

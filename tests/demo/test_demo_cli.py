@@ -403,9 +403,9 @@ def test_sweep_is_closer_to_the_perfect_rig_after_clean_up(demo):
     picture over the central 80 % (align-views leaves an empty border). PSNR on sRGB values as in
     the interpolation protocol of Baker et al. (IJCV 2011); flicker is our own measure (mean jump
     of the log mean colour over the central 60 %, as in tests/cli/test_cli_rig_clean.py).
-    Measured: in-between views 19.0-30.3 dB before (viewmorph.json on the raw cameras), 24.9-40.4
-    dB after (rig-clean.json first), pooled 20.8 and 29.7 dB; flicker 0.043 before, 0.0008 after,
-    0.0007 in the truth itself. Asserted: every in-between view at least 3 dB better after and
+    Measured: in-between views 19.0-29.7 dB before (viewmorph.json on the raw cameras), 24.9-39.4
+    dB after (rig-clean.json first), each view at least 5.8 dB better, pooled 20.8 and 29.7 dB;
+    flicker 0.043 before, 0.0008 after, 0.0007 in the truth itself. Asserted: every in-between view at least 3 dB better after and
     above 23 dB; pooled after above 27 dB; flicker after below a tenth of before."""
     out, _, _, summary = demo
     w = summary["sweep"]
@@ -444,9 +444,11 @@ def test_sweep_is_closer_to_the_perfect_rig_after_clean_up(demo):
 @pytest.mark.slow
 def test_vector_pictures_follow_the_true_motion(demo):
     """The estimated vectors of the plate, pictured with the Baker et al. (2011) colour code, look
-    like the true vectors pictured the same way: where the true motion is fast (saturated), the
-    estimated picture is saturated too; where nothing moves, both are white. Measured: mean code
-    difference 6-7 of 255 over the picture; asserted below 20, against the blank picture's 200+."""
+    like the true vectors pictured the same way (same code, same reference length). Measured on
+    the two pairs: where the true picture is saturated (fast motion), the estimated picture
+    differs by a mean 13-27 code values of 255, against 72-82 for a blank (white, no motion)
+    picture; where nothing moves, by 1.3. Asserted: below half the blank picture's difference
+    where things move, below 5 where nothing does."""
     out, _, _, summary = demo
     r = summary["retime"]
     for f in r["vector_pairs"]:
@@ -455,10 +457,11 @@ def test_vector_pictures_follow_the_true_motion(demo):
         assert est.shape == true.shape == (HEIGHT, WIDTH, 3)
         body = np.ones((HEIGHT, WIDTH), bool)
         body[:70, :70] = False                       # the legend in the corner
-        moving = (255 - true.min(axis=2)) > 60       # saturated in the true picture
-        assert moving[body].mean() > 0.01
-        assert np.abs(est - true)[body].mean() < 20
-        assert (255 - est.min(axis=2))[moving & body].mean() > 60
+        saturation = 255 - true.min(axis=2)
+        moving, still = (saturation > 60) & body, (saturation < 5) & body
+        assert moving.mean() > 0.01 and still.mean() > 0.5
+        assert np.abs(est - true)[moving].mean() < 0.5 * np.abs(255 - true)[moving].mean()
+        assert np.abs(est - true)[still].mean() < 5
     for j in summary["sweep"]["vector_pairs"]:
         for kind in ("rig", "clean"):
             pic = cv2.imread(str(out / "vectors" / f"{kind}.{j:02d}.png"), cv2.IMREAD_COLOR)
