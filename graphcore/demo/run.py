@@ -1,25 +1,37 @@
 """``midframe demo OUTDIR``: build the demo scenario, render it through the engine, check it.
 
-What it does, in order:
+Three parts, each rendered by the engine from shipped templates (through
+:func:`graphcore.execute.render.render`, as ``midframe run`` would) and measured against the exact
+truth of the paper fair (:class:`graphcore.demo.scene.Scene`, our own procedural scene):
 
 1. Claims ``OUTDIR``: creates it, or reuses it when an earlier demo made it (the marker file
    :data:`MARKER`); any other non-empty folder is refused (exit 2), so a user's files are never
    overwritten.
-2. Renders the paper fair (:class:`graphcore.demo.scene.Scene`) at one camera of the rig and
-   writes the plates as OpenEXR: ``plates/fg.%04d.exr`` (premultiplied RGBA foreground, half),
-   ``plates/matte.%04d.exr`` (the matte as ``A``, half), ``plates/bg.exr`` (the clean plate, one
-   still, half; the scene's backdrop does not move) and the true composite
-   ``truth/comp.%04d.exr`` (float, for comparison only: the graph never reads it).
-3. Copies the template ``graphs/demo-comp.json`` into ``OUTDIR`` and renders that copy through
-   :func:`graphcore.execute.render.render`, as ``midframe run`` would: the composite to
-   ``comp/comp.%04d.exr`` (float) and half-size sRGB PNG proxies to ``proxy/comp.%04d.png``.
-4. Measures the rendered composite against the truth: max abs error and PSNR on sRGB-encoded
-   values (IEC 61966-2-1), the convention of the interpolation protocol of Baker et al. (IJCV
-   2011), and separately against Porter-Duff over (Porter and Duff, SIGGRAPH 1984) evaluated
-   here on the stored half plates, which isolates the engine's arithmetic from the half-float
-   rounding of the plates.
-5. Writes ``contact_sheet.png``, ``index.html`` (static, no scripts, no external assets) and
-   ``summary.json``, and prints where to look.
+2. The composite. Renders the scene at one camera of the rig and writes the plates as OpenEXR:
+   ``plates/fg.%04d.exr`` (premultiplied RGBA foreground, half), ``plates/matte.%04d.exr`` (the
+   matte as ``A``, half), ``plates/bg.exr`` (the clean plate, one still, half; the scene's
+   backdrop does not move) and the true composite ``truth/comp.%04d.exr`` (float, for comparison
+   only: no graph reads it). Copies ``graphs/demo-comp.json`` into ``OUTDIR`` and renders that
+   copy: the composite to ``comp/comp.%04d.exr`` (float) and half-size sRGB PNG proxies to
+   ``proxy/comp.%04d.png``. Measures it against the truth: max abs error and PSNR on
+   sRGB-encoded values (IEC 61966-2-1), the convention of the interpolation protocol of Baker et
+   al. (IJCV 2011), against the error half-float plates allow, and against Porter-Duff over
+   (Porter and Duff, SIGGRAPH 1984) evaluated here on the stored plates.
+3. Slow motion (:mod:`graphcore.demo.slowmo`): a stretch of that composite, as the plate, slowed
+   down twice: ``graphs/retime.json`` on the whole plate (before, ``retime/before.%04d.exr``) and
+   ``graphs/fg-retime-over.json`` with the matte and clean plate (after,
+   ``retime/after.%04d.exr``), against the scene's true in-betweens (``truth/retime.%04d.exr``)
+   and a cross-dissolve baseline.
+4. A sweep across a rig (:mod:`graphcore.demo.sweep`): five still cameras with exposure, white
+   balance, position, aim and roll errors (``rig/cam.%02d.exr``); ``graphs/viewmorph.json`` on the
+   raw cameras (before, ``sweep/before.%04d.exr``) and ``graphs/rig-clean.json`` then
+   ``graphs/viewmorph.json`` (after, ``clean/cam.%02d.exr``, ``sweep/after.%04d.exr``), against a
+   perfect rig seen as the reference camera sees (``truth/sweep.%04d.exr``), plus flicker.
+5. Vector pictures (``vectors/*.png``: ``vector-color`` through a small graph written into
+   ``OUTDIR``, reusing the retimes' and sweeps' vectors from a disk cache the demo removes at
+   the end; true vectors from the scene in the same colour code), ``contact_sheet.png`` (before
+   and after), ``index.html`` (static, no scripts, no external assets) and ``summary.json``, and
+   prints where to look.
 
 Progress goes to standard error as ``midframe: ...`` lines; the summary to standard output.
 The scene has no flashing content.
@@ -51,6 +63,9 @@ __all__ = ["run_demo", "DemoSettings", "DEFAULT", "MARKER", "TEMPLATE", "measure
 #: Marker file a demo leaves in its folder; only a folder holding it (or an empty one) is reused.
 MARKER = ".midframe-demo"
 _MARKER_TEXT = "midframe demo"
+
+#: The demo's own disk cache folder inside OUTDIR, removed when the demo ends.
+CACHE = ".cache"
 
 #: The template the demo renders (shipped beside the packages in a source checkout).
 TEMPLATE = Path(__file__).resolve().parents[2] / "graphs" / "demo-comp.json"
@@ -422,9 +437,35 @@ def _run(outdir: str, jobs: int, settings: DemoSettings) -> int:
     pooled = _pool(rows)
     timings["measure_s"] = time.perf_counter() - t
 
+    from graphcore.demo import slowmo, sweep
+    from graphcore.demo.common import FailedFrames
+    from graphcore.demo.scene import Scene
+
+    paths.update(slowmo.paths(root))
+    paths.update(sweep.paths(root))
+    # the vector pictures reuse the retimes' and sweeps' vectors from a disk cache of the demo's
+    # own (removed at the end)
+    cache = str(root / CACHE)
+    t = time.perf_counter()
+    try:
+        scene = Scene(settings.width, settings.height, seed=settings.seed, start_frame=settings.first,
+                      motion=settings.motion)
+        retime = slowmo.run(scene, paths, settings.first, settings.view, TEMPLATE.parent, jobs, cache)
+        timings["retime_s"] = time.perf_counter() - t
+        t = time.perf_counter()
+        rig_scene = sweep.make_scene(settings.width, settings.height, settings.seed, settings.first,
+                                     settings.motion)
+        rig = sweep.run(rig_scene, paths, TEMPLATE.parent, jobs, cache)
+        timings["sweep_s"] = time.perf_counter() - t
+    except FailedFrames as exc:
+        _say(f"demo: frames of {exc.graph} failed; stopped")
+        return exc.exit_code
+    finally:
+        shutil.rmtree(cache, ignore_errors=True)
+
     t = time.perf_counter()
     sheet_frames = contact_sheet_frames(settings.frames, settings.sheet_frames)
-    sheet_size = write_contact_sheet(paths, sheet_frames)
+    sheet_size = write_contact_sheet(paths, sheet_frames, retime, rig)
     timings["sheet_s"] = time.perf_counter() - t
     timings["total_s"] = time.perf_counter() - t_start
 
@@ -437,7 +478,10 @@ def _run(outdir: str, jobs: int, settings: DemoSettings) -> int:
         "command": command,
         "errors": {"per_frame": [{k: v for k, v in r.items() if k != "mse_srgb"} for r in rows],
                    **pooled, "within_bound": pooled["bound_ratio"] <= 1.0},
-        "contact_sheet": {"path": paths["sheet"], "size": list(sheet_size), "frames": sheet_frames},
+        "retime": retime,
+        "sweep": rig,
+        "contact_sheet": {"path": paths["sheet"], "size": list(sheet_size), "frames": sheet_frames,
+                          "retime_frames": retime["sheet_frames"], "sweep_frames": rig["sheet_frames"]},
         "timings": {k: round(v, 3) for k, v in timings.items()},
     }
     with open(paths["graph"], encoding="utf-8-sig") as fh:
@@ -448,10 +492,10 @@ def _run(outdir: str, jobs: int, settings: DemoSettings) -> int:
         json.dumps(_json_safe(summary), indent=2) + "\n"))
 
     ok = summary["errors"]["within_bound"]
-    print(f"midframe demo: composited {settings.count} frames {settings.first}-{settings.last} "
-          f"({settings.width}x{settings.height}) through {paths['graph']} with {jobs} job(s) "
-          f"in {timings['total_s']:.1f} s (render {timings['render_s']:.1f} s)")
-    print(f"  error against the ground truth, sRGB-encoded (IEC 61966-2-1): max abs "
+    print(f"midframe demo: the paper fair in {timings['total_s']:.1f} s with {jobs} job(s); composited "
+          f"{settings.count} frames {settings.first}-{settings.last} ({settings.width}x{settings.height}) "
+          f"through {paths['graph']} (render {timings['render_s']:.1f} s)")
+    print(f"  composite against the ground truth, sRGB-encoded (IEC 61966-2-1): max abs "
           f"{pooled['max_abs_srgb']:.2e}, PSNR worst frame {_fmt_psnr(pooled['min_psnr_srgb_db'])}, "
           f"all frames {_fmt_psnr(pooled['pooled_psnr_srgb_db'])}; linear max abs "
           f"{pooled['max_abs_linear']:.2e}")
@@ -459,8 +503,19 @@ def _run(outdir: str, jobs: int, settings: DemoSettings) -> int:
           f"at {pooled['bound_ratio']:.3f} of it; the plates are half float, the truth float)")
     print(f"  against Porter-Duff over on the stored plates: max abs {pooled['max_abs_vs_formula']:.2e}"
           + (" (bit-exact)" if pooled["max_abs_vs_formula"] == 0 else ""))
+    ri, si = retime["inbetweens"], rig["inbetweens"]
+    print(f"  slow motion x{retime['slowdown']} (frames {retime['frames'][0]}-{retime['frames'][-1]}), in-betweens "
+          f"against the truth: PSNR {_fmt_psnr(ri['before']['pooled_psnr_srgb_db'])} before (retime.json), "
+          f"{_fmt_psnr(ri['after']['pooled_psnr_srgb_db'])} after (fg-retime-over.json), "
+          f"{_fmt_psnr(ri['dissolve']['pooled_psnr_srgb_db'])} cross-dissolve")
+    print(f"  sweep across {rig['cameras']} imperfect cameras, in-between views against the perfect rig: PSNR "
+          f"{_fmt_psnr(si['before']['pooled_psnr_srgb_db'])} before (viewmorph.json), "
+          f"{_fmt_psnr(si['after']['pooled_psnr_srgb_db'])} after (rig-clean.json first); flicker "
+          f"{rig['flicker']['before']:.4f} before, {rig['flicker']['after']:.4f} after")
     print(f"  look at:    {paths['page']}")
-    print(f"  EXR frames: {root / 'comp'} (composite), {root / 'plates'} (inputs), {root / 'truth'} (truth)")
+    print(f"  EXR frames: {root / 'comp'} (composite), {root / 'retime'} and {root / 'sweep'} (before and "
+          f"after), {root / 'plates'} and {root / 'rig'} (inputs), {root / 'truth'} (truth)")
+    print(f"  vectors:    {root / 'vectors'} (pictures)")
     print(f"  proxies:    {root / 'proxy'}   contact sheet: {paths['sheet']}")
     print(f"  rerun:      {command}")
     if not ok:

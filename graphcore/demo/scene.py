@@ -352,12 +352,23 @@ class Scene:
         m = self.motion
         return dx * m * self.height, dy * m * self.height, da * m
 
-    def camera(self, view: Number, *, ideal: bool = False) -> Camera:
-        """The camera at ``view`` (interpolated between neighbouring cameras when fractional)."""
+    def camera(self, view: Number, *, ideal: bool = False, like: Number | None = None) -> Camera:
+        """The camera at ``view`` (interpolated between neighbouring cameras when fractional).
+
+        ``ideal=True``: the perfect rig's camera. ``like=r``: the perfect rig's camera carrying
+        camera ``r``'s imperfections instead of its own (its position offset, gains, aim and
+        roll), so every view is the ideal one seen the way camera ``r`` sees; ``like=view`` is
+        camera ``view`` itself. That is what cleaning a rig up to a reference camera ``r``
+        aims for (the reference passes through unchanged, the others are matched to it).
+        """
         v = _real(view)
         xc = self.baseline * (v - (self.cameras - 1) / 2.0)
         if ideal:
             return Camera(v, xc, 0.0, (1.0, 1.0, 1.0), (0.0, 0.0), 0.0)
+        if like is not None:
+            ref = self.camera(like)
+            dx = ref.x - self.baseline * (_real(like) - (self.cameras - 1) / 2.0)
+            return Camera(v, xc + dx, ref.y, ref.gain, ref.shift, ref.roll)
         lo = min(max(v, 0.0), self.cameras - 1.0)
         i0 = int(math.floor(lo))
         i1 = min(i0 + 1, self.cameras - 1)
@@ -375,7 +386,7 @@ class Scene:
 
     # -- rendering ------------------------------------------------------------------------
     def render(self, frame: Number, view: Number = 0, *, ideal: bool = False,
-               layers: bool = False) -> dict[str, Any]:
+               layers: bool = False, like: Number | None = None) -> dict[str, Any]:
         """Render the true image at ``frame`` and ``view``.
 
         Parameters
@@ -386,6 +397,10 @@ class Scene:
             Ignore the rig imperfections (a perfect camera at the ideal rig position).
         layers : bool
             Also return every layer on its own.
+        like : int, float or Fraction, optional
+            Render the perfect rig's camera at ``view`` as camera ``like`` sees (see
+            :meth:`camera`): the true picture a rig cleaned up to reference camera ``like``
+            should show.
 
         Returns
         -------
@@ -397,11 +412,13 @@ class Scene:
             ``fg``. With ``layers=True`` also ``'layers'``: dict name -> Image R, G, B, A
             (premultiplied, full frame), far to near. Colours include the camera's gain.
         """
-        cam = self.camera(view, ideal=ideal)
+        cam = self.camera(view, ideal=ideal, like=like)
         crops = self._render_layers(self._tau(frame), cam)
         H, W = self.height, self.width
         meta = {"demo.scene": "paper-fair", "demo.seed": self.seed, "demo.frame": str(frame),
                 "demo.view": str(view), "demo.ideal": bool(ideal)}
+        if like is not None:
+            meta["demo.like"] = str(like)
 
         bg = crops[0][2]  # the backdrop covers the whole frame
         fg = np.zeros((H, W, 4), np.float32)

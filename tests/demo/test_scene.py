@@ -311,3 +311,22 @@ def test_bad_requests_name_the_problem(scene):
         scene.depth("kite")
     with pytest.raises(TypeError):
         scene.render(True)
+
+
+def test_like_gives_the_perfect_rig_with_one_cameras_imperfections():
+    # exact invariants of Scene.camera(view, like=r): at view r it is camera r itself; elsewhere it
+    # is the ideal camera shifted by camera r's position offset and carrying its gains, aim and roll
+    rig = RigImperfections(exposure_stops=0.3, white_balance_stops=0.15, position_jitter=0.05,
+                           aim_jitter=0.02, roll_jitter_deg=1.5, seed=3)
+    sc = Scene(96, 54, cameras=5, rig=rig)
+    for r in range(5):
+        assert sc.camera(r, like=r) == sc.camera(r)
+        np.testing.assert_array_equal(sc.render(7, r, like=r)["comp"].pixels, sc.render(7, r)["comp"].pixels)
+    ref = sc.camera(2)
+    for v in (0, Fraction(5, 4), 4):
+        cam, ideal = sc.camera(v, like=2), sc.camera(v, ideal=True)
+        assert cam.gain == ref.gain and cam.shift == ref.shift and cam.roll == ref.roll and cam.y == ref.y
+        assert cam.x - ideal.x == pytest.approx(ref.x - sc.camera(2, ideal=True).x, abs=1e-12)
+    # with a perfect rig, like= is the ideal camera
+    assert Scene(96, 54, cameras=5).camera(Fraction(3, 2), like=0) == Scene(96, 54, cameras=5).camera(
+        Fraction(3, 2), ideal=True)
