@@ -126,3 +126,28 @@ def test_unreachable_scheduler_is_a_clear_error_within_seconds(tmp_path):
     assert not list(tmp_path.glob("o.*.exr"))
     bad = render(src, f"{tmp_path}/o.%04d.exr", "--scheduler", "local:0")
     assert bad.returncode == 2 and "local:N" in bad.stderr
+
+
+@pytest.mark.slow
+def test_a_worker_killed_mid_render_is_replaced(tmp_path, cluster):
+    """SIGKILL one of the two workers while chunks are in flight: Dask runs its chunk again on the
+    other (or on the restarted one); the render still succeeds with the serial pixels."""
+    from dask.distributed import Client
+
+    src = plates(tmp_path / "src", 8)
+    assert render(src, f"{tmp_path}/serial/o.%04d.exr").returncode == 0
+    out = tmp_path / "dask"
+    proc = subprocess.Popen([*RUN, "--set", f"src={src}", "--set", f"dst={out}/o.%04d.exr", "--scheduler", cluster],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    with Client(cluster, timeout=30) as c:
+        pids = c.run(os.getpid)
+    deadline = time.time() + 300
+    while time.time() < deadline and not (out.exists() and any(p.name.startswith("o.") for p in out.iterdir())):
+        time.sleep(0.05)
+    os.kill(sorted(pids.values())[0], signal.SIGKILL)
+    _, err = proc.communicate(timeout=600)
+    assert proc.returncode == 0, err
+    for k in range(1001, 1016):
+        assert same_pixels(tmp_path / "serial" / f"o.{k}.exr", out / f"o.{k}.exr"), k
+    with Client(cluster, timeout=30) as c:                    # the nanny brought the worker back
+        c.wait_for_workers(2, timeout=60)
