@@ -25,7 +25,7 @@ import numpy as np
 
 from . import _pyramid
 from ._filters import robust_affine
-from ._grid import pixel_grid, resize_flow
+from ._grid import chunks4, pixel_grid, resize_flow
 from ._icm import coarse_labels, icm
 from ._likelihood import patch_cost
 from ._refine import refine
@@ -398,12 +398,18 @@ class _Plan:
 
 @dataclass(frozen=True)
 class _Features:
-    """One image's matching features at one level, with their derivatives."""
+    """One image's matching features at one level, with their derivatives, each in pieces of
+    four channels (``_grid.chunks4``, which OpenCV warps fastest and exactly)."""
 
     level: _pyramid.Level
-    dx: np.ndarray
-    dy: np.ndarray
+    feat: tuple[np.ndarray, ...]
+    dx: tuple[np.ndarray, ...]
+    dy: tuple[np.ndarray, ...]
     support: Support | None = None
+
+    @property
+    def channels(self) -> int:
+        return self.level.feat.shape[2]
 
 
 def _prepare(first, second, prefilter: float) -> tuple[np.ndarray, np.ndarray]:
@@ -417,7 +423,8 @@ def _prepare(first, second, prefilter: float) -> tuple[np.ndarray, np.ndarray]:
 def _features(img: np.ndarray, p: Preset, support: bool = False) -> _Features:
     lev = _pyramid.level(img, p.brightness, p.edge_sigma, p.edge_floor, p.census, p.census_scale)
     sup = Support(img, p.support, p.support_color, p.support_space) if support else None
-    return _Features(lev, *_derivatives(lev.feat), sup)
+    dx, dy = _derivatives(lev.feat)
+    return _Features(lev, chunks4(lev.feat), chunks4(dx), chunks4(dy), sup)
 
 
 def _finish(u: np.ndarray, v: np.ndarray, plan: _Plan) -> np.ndarray:
@@ -466,7 +473,7 @@ def _solve_level(p: Preset, plan: _Plan, k: int, warps: int, iters: int, f1: _Fe
         reach = max(1, math.ceil(plan.search_range / 2 ** k))
         while reach > 1 and (2 * reach + 1) ** 2 * lh * lw > _MAX_VOLUME:
             reach -= 1
-        u, v = coarse_labels(l1.feat, l2.feat, xs, ys, l1.wx, l1.wy, reach=reach,
+        u, v = coarse_labels(f1.feat, f2.feat, xs, ys, l1.wx, l1.wy, reach=reach,
                              tau=p.tau, tau_out=p.tau_out, patch=p.patch, lam=p.lam,
                              eps=p.eps_s, sweeps=p.coarse_sweeps, support=f1.support)
         if _trace:
@@ -481,7 +488,7 @@ def _solve_level(p: Preset, plan: _Plan, k: int, warps: int, iters: int, f1: _Fe
             bias = (ref[0], ref[1], (np.float32(p.occluded_bias) * occ).astype(np.float32))
 
         def cost(cu, cv_, patch):
-            c = patch_cost(l1.feat, l2.feat, xs, ys, cu, cv_, p.tau, p.tau_out, patch, f1.support)
+            c = patch_cost(f1.feat, f2.feat, xs, ys, cu, cv_, p.tau, p.tau_out, patch, f1.support)
             if wd is not None:
                 c = c * wd + bias[2] * (np.abs(cu - bias[0]) + np.abs(cv_ - bias[1]))
             return c
@@ -491,7 +498,7 @@ def _solve_level(p: Preset, plan: _Plan, k: int, warps: int, iters: int, f1: _Fe
         else:
             u, v = resize_flow(u, v, lh, lw)
         if k >= plan.work and p.icm_sweeps:
-            u, v = icm(l1.feat, l2.feat, xs, ys, l1.wx, l1.wy, u, v, rng=rng,
+            u, v = icm(f1.feat, f2.feat, xs, ys, l1.wx, l1.wy, u, v, rng=rng,
                        sweeps=p.work_sweeps if k == plan.work else p.icm_sweeps, tau=p.tau,
                        tau_out=p.tau_out, patch=p.patch,
                        lam=p.lam, eps=p.eps_s, jumps=p.jumps, radius=p.radius, block=8,
@@ -499,16 +506,17 @@ def _solve_level(p: Preset, plan: _Plan, k: int, warps: int, iters: int, f1: _Fe
             if _trace:
                 _trace("icm", k, u, v)
         if warps and iters:
-            u, v = refine(l1.feat, f1.dx, f1.dy, l2.feat, f2.dx, f2.dy, xs, ys, l1.wx, l1.wy,
+            u, v = refine(f1.feat, f1.dx, f1.dy, f2.feat, f2.dx, f2.dy, xs, ys, l1.wx, l1.wy,
                           u, v, lam=p.lam, eps_d=p.eps_d, eps_s=p.eps_s, warps=warps,
-                          iters=iters, reweight=5, omega=1.8, median=p.median, data_weight=wd)
+                          iters=iters, reweight=5, omega=1.8, median=p.median, data_weight=wd,
+                          channels=f1.channels)
             if _trace:
                 _trace("refine", k, u, v)
         return u, v
     if warps and iters:
-        u, v = refine(l1.feat, f1.dx, f1.dy, l2.feat, f2.dx, f2.dy, xs, ys, l1.wx, l1.wy, u, v,
+        u, v = refine(f1.feat, f1.dx, f1.dy, f2.feat, f2.dx, f2.dy, xs, ys, l1.wx, l1.wy, u, v,
                       lam=p.lam, eps_d=p.eps_d, eps_s=p.eps_s, warps=warps, iters=iters,
-                      reweight=5, omega=1.8, median=p.median)
+                      reweight=5, omega=1.8, median=p.median, channels=f1.channels)
         if _trace:
             _trace("refine", k, u, v)
     return u, v
