@@ -39,12 +39,12 @@ def chunks4(img: np.ndarray) -> tuple[np.ndarray, ...]:
     pieces of four (``warp_chunks``); zero channels add nothing to a sum of differences.
     """
     h, w, c = img.shape
-    n = -(-c // 4)
-    if n == 1 and c == 4:
-        return (np.ascontiguousarray(img, dtype=np.float32),)
-    pad = np.zeros((h, w, 4 * n), np.float32)
-    pad[:, :, :c] = img
-    return tuple(np.ascontiguousarray(pad[:, :, 4 * i:4 * i + 4]) for i in range(n))
+    out = []
+    for i in range(0, c, 4):
+        piece = np.zeros((h, w, 4), np.float32) if c - i < 4 else np.empty((h, w, 4), np.float32)
+        piece[:, :, :min(4, c - i)] = img[:, :, i:i + 4]
+        out.append(piece)
+    return tuple(out)
 
 
 def warp_chunks(chunks: tuple[np.ndarray, ...], mx: np.ndarray, my: np.ndarray) -> list[np.ndarray]:

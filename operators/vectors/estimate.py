@@ -423,8 +423,9 @@ def _prepare(first, second, prefilter: float) -> tuple[np.ndarray, np.ndarray]:
 def _features(img: np.ndarray, p: Preset, support: bool = False) -> _Features:
     lev = _pyramid.level(img, p.brightness, p.edge_sigma, p.edge_floor, p.census, p.census_scale)
     sup = Support(img, p.support, p.support_color, p.support_space) if support else None
-    dx, dy = _derivatives(lev.feat)
-    return _Features(lev, chunks4(lev.feat), chunks4(dx), chunks4(dy), sup)
+    feat = chunks4(lev.feat)
+    grads = [_derivatives(c) for c in feat]
+    return _Features(lev, feat, tuple(g[0] for g in grads), tuple(g[1] for g in grads), sup)
 
 
 def _finish(u: np.ndarray, v: np.ndarray, plan: _Plan) -> np.ndarray:
