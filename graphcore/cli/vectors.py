@@ -2,9 +2,10 @@
 
 Reads both images (any format ``read`` takes), estimates vectors both ways with ``flow-estimate``'s
 code, checks and cleans them with ``vector-smooth``'s code (forward-backward consistency, occluded
-vectors and the pixels beside motion edges filled from the background side, which side is told
-apart by the image's edges (``fill_occluded``'s rule ``"auto"``), weighted median, edge-aware
-smoothing; ``--raw`` skips this), and writes one float EXR at the inputs' resolution with channels
+vectors, the losers of many-to-one conflicts of the mapping and the pixels beside motion edges
+refilled, occluded ones from the background side, which side is told apart by the image's edges
+(``fill_occluded``'s rule ``"auto"``), weighted median, edge-aware smoothing; ``--raw`` skips
+this), and writes one float EXR at the inputs' resolution with channels
 ``fwd.x fwd.y`` (at FIRST's pixels, toward SECOND), ``bwd.x bwd.y`` (at SECOND's pixels, toward
 FIRST), ``conf`` (confidence of fwd, 0..1), ``bwd.conf``, ``fwd.occ``, ``bwd.occ``, in pixels,
 x right, y down. The file is written atomically and carries a ``midframe.provenance`` record.
@@ -17,6 +18,7 @@ import json
 import os
 import sys
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 
 from graphcore import __version__
@@ -56,7 +58,8 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
         # both directions in one solve: shared pyramids and features
         from operators.vectors.estimate import estimate_flow_pair
 
-        fwd, bwd = estimate_flow_pair(a, b, quality=quality, search_range=search_range, prefilter=prefilter)
+        fwd, bwd = estimate_flow_pair(a, b, quality=quality, search_range=search_range, prefilter=prefilter,
+                                      workers=2)
     else:
         fwd = estimate_pair(a, b, params)
         bwd = estimate_pair(b, a, params)
@@ -64,10 +67,13 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
         conf_f, occ_f = fb_consistency(fwd, bwd)
         conf_b, occ_b = fb_consistency(bwd, fwd)
     else:
-        # background side chosen per image from the image's edges; both sides of motion edges refilled
+        # background side chosen per image from the image's edges; both sides of motion edges and
+        # the losers of many-to-one conflicts refilled
         options = dict(fill_rule="auto", suspect_jump=SUSPECT_JUMP)
-        fwd2, conf_f, occ_f = smooth_direction(fwd, bwd, a, **options)
-        bwd2, conf_b, occ_b = smooth_direction(bwd, fwd, b, **options)
+        with ThreadPoolExecutor(2) as pool:      # one pair: both directions side by side
+            (fwd2, conf_f, occ_f), (bwd2, conf_b, occ_b) = pool.map(
+                lambda job: smooth_direction(*job[:3], other=job[3], **options),
+                [(fwd, bwd, a, b), (bwd, fwd, b, a)])
         fwd, bwd = fwd2, bwd2
     planes = {"fwd.x": fwd[..., 0], "fwd.y": fwd[..., 1], "bwd.x": bwd[..., 0], "bwd.y": bwd[..., 1],
               "conf": conf_f, "bwd.conf": conf_b, "fwd.occ": occ_f, "bwd.occ": occ_b}
