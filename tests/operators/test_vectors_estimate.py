@@ -140,6 +140,11 @@ def test_pair_shares_work_but_equals_two_separate_estimates():
     fwd, bwd = estimate_flow_pair(first, second)
     assert np.array_equal(fwd, estimate_flow(first, second))
     assert np.array_equal(bwd, estimate_flow(second, first))
+    # and solving the two directions in two threads changes nothing
+    fwd2, bwd2 = estimate_flow_pair(first, second, workers=2)
+    assert np.array_equal(fwd, fwd2) and np.array_equal(bwd, bwd2)
+    with pytest.raises(ValueError, match="workers"):
+        estimate_flow_pair(first, second, workers=0)
 
 
 def test_joint_occlusion_option_keeps_both_layers():
