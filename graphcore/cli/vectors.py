@@ -4,8 +4,8 @@ Reads both images (any format ``read`` takes), estimates vectors both ways with 
 code, checks and cleans them with ``vector-smooth``'s code (forward-backward consistency, occluded
 vectors, the losers of many-to-one conflicts of the mapping and the pixels beside motion edges
 refilled, occluded ones from the background side, which side is told apart by the image's edges
-(``fill_occluded``'s rule ``"auto"``), weighted median, edge-aware smoothing; ``--raw`` skips
-this), and writes one float EXR at the inputs' resolution with channels
+(``fill_occluded``'s rule ``"auto"``), a 7 x 7 weighted median, edge-aware smoothing; ``--raw``
+skips this), and writes one float EXR at the inputs' resolution with channels
 ``fwd.x fwd.y`` (at FIRST's pixels, toward SECOND), ``bwd.x bwd.y`` (at SECOND's pixels, toward
 FIRST), ``conf`` (confidence of fwd, 0..1), ``bwd.conf``, ``fwd.occ``, ``bwd.occ``, in pixels,
 x right, y down. The file is written atomically and carries a ``midframe.provenance`` record.
@@ -69,7 +69,9 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
     else:
         # background side chosen per image from the image's edges; both sides of motion edges and
         # the losers of many-to-one conflicts refilled
-        options = dict(fill_rule="auto", suspect_jump=SUSPECT_JUMP)
+        # a 7 x 7 weighted median (vector-smooth's default is 5 x 5): on Motorcycle 1.503 -> 1.488 px,
+        # on the demo scene's visible pixels 0.149 -> 0.147 px
+        options = dict(fill_rule="auto", suspect_jump=SUSPECT_JUMP, median_radius=3)
         with ThreadPoolExecutor(2) as pool:      # one pair: both directions side by side
             (fwd2, conf_f, occ_f), (bwd2, conf_b, occ_b) = pool.map(
                 lambda job: smooth_direction(*job[:3], other=job[3], **options),
