@@ -652,7 +652,7 @@ def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.nda
         With ``fill``: the neighbour's image (same encoding as ``guide``). Pixels that lose a
         many-to-one conflict of the vectors (`consistency.mapping_conflicts`: several pixels
         landing on one pixel of the neighbour, the worse matches) are refilled like occluded
-        ones (see Notes). None: off.
+        ones (see Notes). None (or no ``guide``): off.
 
     Returns
     -------
