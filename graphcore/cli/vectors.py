@@ -2,8 +2,10 @@
 
 Reads both images (any format ``read`` takes), estimates vectors both ways with ``flow-estimate``'s
 code, checks and cleans them with ``vector-smooth``'s code (forward-backward consistency, occluded
-vectors filled from the background side, weighted median, edge-aware smoothing; ``--raw`` skips
-this), and writes one float EXR at the inputs' resolution with channels
+vectors, the losers of many-to-one conflicts of the mapping and the pixels beside motion edges
+refilled, occluded ones from the background side, which side is told apart by the image's edges
+(``fill_occluded``'s rule ``"auto"``), a 7 x 7 weighted median, edge-aware smoothing; ``--raw``
+skips this), and writes one float EXR at the inputs' resolution with channels
 ``fwd.x fwd.y`` (at FIRST's pixels, toward SECOND), ``bwd.x bwd.y`` (at SECOND's pixels, toward
 FIRST), ``conf`` (confidence of fwd, 0..1), ``bwd.conf``, ``fwd.occ``, ``bwd.occ``, in pixels,
 x right, y down. The file is written atomically and carries a ``midframe.provenance`` record.
@@ -16,6 +18,7 @@ import json
 import os
 import sys
 import time
+from concurrent.futures import ThreadPoolExecutor
 
 
 from graphcore import __version__
@@ -45,7 +48,7 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
     """Vectors both ways between two images, as one Image (channels as in the module docstring)."""
     from operators.vectors.consistency import fb_consistency
     from operators.vectors.flow import FlowParams, match_channels, estimate_pair, perceptual
-    from operators.vectors.smooth import smooth_direction
+    from operators.vectors.smooth import SUSPECT_JUMP, smooth_direction
 
     params = FlowParams(engine=engine, quality=quality, search_range=search_range, prefilter=prefilter)
     channels = match_channels(first, None)
@@ -55,7 +58,8 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
         # both directions in one solve: shared pyramids and features
         from operators.vectors.estimate import estimate_flow_pair
 
-        fwd, bwd = estimate_flow_pair(a, b, quality=quality, search_range=search_range, prefilter=prefilter)
+        fwd, bwd = estimate_flow_pair(a, b, quality=quality, search_range=search_range, prefilter=prefilter,
+                                      workers=2)
     else:
         fwd = estimate_pair(a, b, params)
         bwd = estimate_pair(b, a, params)
@@ -63,8 +67,15 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
         conf_f, occ_f = fb_consistency(fwd, bwd)
         conf_b, occ_b = fb_consistency(bwd, fwd)
     else:
-        fwd2, conf_f, occ_f = smooth_direction(fwd, bwd, a)
-        bwd2, conf_b, occ_b = smooth_direction(bwd, fwd, b)
+        # background side chosen per image from the image's edges; both sides of motion edges and
+        # the losers of many-to-one conflicts refilled
+        # a 7 x 7 weighted median (vector-smooth's default is 5 x 5): on Motorcycle 1.503 -> 1.488 px,
+        # on the demo scene's visible pixels 0.149 -> 0.147 px
+        options = dict(fill_rule="auto", suspect_jump=SUSPECT_JUMP, median_radius=3)
+        with ThreadPoolExecutor(2) as pool:      # one pair: both directions side by side
+            (fwd2, conf_f, occ_f), (bwd2, conf_b, occ_b) = pool.map(
+                lambda job: smooth_direction(*job[:3], other=job[3], **options),
+                [(fwd, bwd, a, b), (bwd, fwd, b, a)])
         fwd, bwd = fwd2, bwd2
     planes = {"fwd.x": fwd[..., 0], "fwd.y": fwd[..., 1], "bwd.x": bwd[..., 0], "bwd.y": bwd[..., 1],
               "conf": conf_f, "bwd.conf": conf_b, "fwd.occ": occ_f, "bwd.occ": occ_b}

@@ -29,6 +29,29 @@ def warp(img: np.ndarray, mx: np.ndarray, my: np.ndarray) -> np.ndarray:
     return cv2.remap(img, mx, my, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
 
 
+def chunks4(img: np.ndarray) -> tuple[np.ndarray, ...]:
+    """An (H, W, C) float32 array as contiguous (H, W, 4) pieces, the last padded with zeros.
+
+    OpenCV's ``remap`` samples 1-, 3- and 4-channel float images on a vectorised path with exact
+    bilinear weights, but images of more channels on a generic path that is several times
+    slower and quantises the weights to 1/32 px (measured with OpenCV 5.0: 7 channels took
+    about 6 ms at 741 x 500, two 4-channel pieces about 2 ms). Features are therefore warped in
+    pieces of four (``warp_chunks``); zero channels add nothing to a sum of differences.
+    """
+    h, w, c = img.shape
+    out = []
+    for i in range(0, c, 4):
+        piece = np.zeros((h, w, 4), np.float32) if c - i < 4 else np.empty((h, w, 4), np.float32)
+        piece[:, :, :min(4, c - i)] = img[:, :, i:i + 4]
+        out.append(piece)
+    return tuple(out)
+
+
+def warp_chunks(chunks: tuple[np.ndarray, ...], mx: np.ndarray, my: np.ndarray) -> list[np.ndarray]:
+    """``warp`` of each piece of ``chunks4``."""
+    return [warp(c, mx, my) for c in chunks]
+
+
 def outside(mx: np.ndarray, my: np.ndarray, h: int, w: int) -> np.ndarray:
     """1.0 where ``(mx, my)`` falls outside an ``h`` x ``w`` image, else 0.0 (float32)."""
     out = (mx < -0.5) | (mx > w - 0.5) | (my < -0.5) | (my > h - 0.5)

@@ -14,14 +14,18 @@ import numpy as np
 
 from ._grid import outside, warp
 
+_ONES4 = np.ones((1, 4), np.float32)
+
+
 def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarray,
                    cu: np.ndarray, cv: np.ndarray, tau: float, tau_out: float) -> np.ndarray:
     """Truncated feature difference ``min(sum_c |F2_c(x + c) - F1_c(x)|, tau)`` per pixel.
 
     Parameters
     ----------
-    f1, f2 : ndarray, shape (H, W, C), float32
-        Matching features of the two images at one level.
+    f1, f2 : tuple of ndarray, shape (H, W, 4), float32
+        Matching features of the two images at one level, in pieces of four channels
+        (``_grid.chunks4``).
     xs, ys : ndarray, shape (H, W), float32
         Pixel grid of that level.
     cu, cv : ndarray, shape (H, W), float32
@@ -34,7 +38,11 @@ def pointwise_cost(f1: np.ndarray, f2: np.ndarray, xs: np.ndarray, ys: np.ndarra
     h, w = cu.shape
     mx = xs + cu
     my = ys + cv
-    diff = cv2.transform(cv2.absdiff(warp(f2, mx, my), f1), np.ones((1, f1.shape[2]), np.float32))
+    acc = None
+    for c1, c2 in zip(f1, f2):
+        d = cv2.absdiff(warp(c2, mx, my), c1)
+        acc = d if acc is None else cv2.add(acc, d, dst=acc)
+    diff = cv2.transform(acc, _ONES4)
     c = np.minimum(diff, np.float32(tau))
     oob = outside(mx, my, h, w)
     c += oob * (np.float32(tau_out) - c)

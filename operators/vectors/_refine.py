@@ -12,22 +12,24 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-from ._grid import outside, warp
+from ._grid import outside, warp_chunks
 from ._icm import checkerboard
 from ._prior import irls_weights, neighbour_sum, neighbour_weights
 
 
 def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_d: float,
            eps_s: float, warps: int, iters: int, reweight: int, omega: float,
-           median: int, data_weight: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+           median: int, data_weight: np.ndarray | None = None,
+           channels: int | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Refine the field ``(u, v)`` at one level.
 
     Parameters
     ----------
-    f1, f2 : ndarray, shape (H, W, 3), float32
-        Matching features of ``first`` and ``second``.
-    f1x, f1y, f2x, f2y : ndarray, shape (H, W, 3), float32
-        Their x and y derivatives.
+    f1, f2 : tuple of ndarray, shape (H, W, 4), float32
+        Matching features of ``first`` and ``second`` in pieces of four channels
+        (``_grid.chunks4``; padding channels are zero).
+    f1x, f1y, f2x, f2y : tuple of ndarray, shape (H, W, 4), float32
+        Their x and y derivatives, in the same pieces.
     xs, ys : ndarray, shape (H, W)
         Pixel grid.
     wx, wy : ndarray
@@ -47,6 +49,9 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
         none; Sun, Roth & Black 2010 find it removes outliers of the linearisation).
     data_weight : ndarray, shape (H, W), optional
         Per-pixel weight of the data term (0 at occluded pixels: the prior fills them).
+    channels : int, optional
+        How many feature channels are real (the rest of the last piece is padding); all when
+        omitted.
 
     Returns
     -------
@@ -62,9 +67,9 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
         valid = 1.0 - outside(mx, my, h, w)
         if data_weight is not None:
             valid = valid * data_weight
-        iz = cv2.split(warp(f2, mx, my) - f1)
-        ix = cv2.split(0.5 * (warp(f2x, mx, my) + f1x))
-        iy = cv2.split(0.5 * (warp(f2y, mx, my) + f1y))
+        iz = _planes([a - b for a, b in zip(warp_chunks(f2, mx, my), f1)], channels)
+        ix = _planes([0.5 * (a + b) for a, b in zip(warp_chunks(f2x, mx, my), f1x)], channels)
+        iy = _planes([0.5 * (a + b) for a, b in zip(warp_chunks(f2y, mx, my), f1y)], channels)
         du = np.zeros((h, w), np.float32)
         dv = np.zeros((h, w), np.float32)
         for it in range(iters):
@@ -106,3 +111,9 @@ def refine(f1, f1x, f1y, f2, f2x, f2y, xs, ys, wx, wy, u, v, *, lam: float, eps_
             u = cv2.medianBlur(u, median)
             v = cv2.medianBlur(v, median)
     return u, v
+
+
+def _planes(chunks: list[np.ndarray], channels: int | None) -> list[np.ndarray]:
+    """The (H, W) planes of four-channel pieces, without the padding beyond ``channels``."""
+    planes = [p for c in chunks for p in cv2.split(c)]
+    return planes if channels is None else planes[:channels]

@@ -23,7 +23,8 @@ from __future__ import annotations
 import cv2
 import numpy as np
 
-__all__ = ["fb_consistency", "fb_check", "target_outside", "PAPER_RELATIVE", "PAPER_TOLERANCE"]
+__all__ = ["fb_consistency", "fb_check", "target_outside", "mapping_conflicts", "PAPER_RELATIVE",
+           "PAPER_TOLERANCE"]
 
 #: Sundaram et al. (2010): alpha1 (dimensionless) and alpha2 (px^2) of the occlusion criterion.
 PAPER_RELATIVE = 0.01
@@ -147,3 +148,79 @@ def fb_check(fwd: np.ndarray, bwd_at_target: np.ndarray, *, tolerance: float = P
     np.exp2(conf, out=conf)
     conf[outside] = 0.0
     return conf, occ.astype(np.float32), outside
+
+
+def mapping_conflicts(flow: np.ndarray, first: np.ndarray, second: np.ndarray, *, jump: float = 1.0,
+                      radius: int = 1) -> np.ndarray:
+    """Pixels that lose a many-to-one conflict of the vectors: the uniqueness constraint.
+
+    Content visible in both images corresponds one to one, so two pixels of ``first`` whose
+    vectors land on the same pixel of ``second`` cannot both be right unless their vectors agree
+    (the uniqueness constraint of Marr & Poggio 1976; occlusion detection by the uniqueness of
+    the mapping as in Xu, Jia & Matsushita 2012, both as recalled). Where pixels land on one
+    pixel of ``second`` (targets rounded to the nearest pixel), the one whose patch matches
+    ``second`` best wins; each other one whose vector differs from the winner's by more than
+    ``jump`` pixels in x or y is marked.
+
+    This catches what the forward-backward check misses beside an occluding edge: when both
+    directions carry the occluder's vector into the background, an occluded background pixel
+    with the occluder's vector and its reverse partner agree, but it lands on a background pixel
+    of ``second`` that the truly corresponding (visible) pixel of ``first`` also lands on, and
+    that one matches better.
+
+    Parameters
+    ----------
+    flow : ndarray, shape (H, W, 2), float
+        Vectors at ``first``'s pixels toward ``second``. Must be finite.
+    first, second : ndarray, shape (H, W, C) or (H, W), float
+        The two images (the same perceptual encoding).
+    jump : float
+        Vectors closer than this (px, in x and in y) to the winner's do not conflict with it.
+    radius : int
+        The match is the mean absolute difference over the (2r+1)^2 patch, summed over channels,
+        of ``first`` against ``second`` sampled bilinearly at ``x + w(x)``.
+
+    Returns
+    -------
+    ndarray, shape (H, W), bool
+        True at the losing pixels. Vectors landing outside ``second`` never conflict.
+
+    References
+    ----------
+    .. [1] Marr, D. and Poggio, T., "Cooperative computation of stereo disparity", Science
+       194(4262), 1976 (the uniqueness constraint).
+    .. [2] Xu, L., Jia, J. and Matsushita, Y., "Motion detail preserving optical flow
+       estimation", IEEE PAMI 34(9), 2012 (occlusion from the uniqueness of the mapping).
+    """
+    f = np.asarray(flow, dtype=np.float32)
+    h, w = f.shape[:2]
+    a = np.asarray(first, dtype=np.float32)
+    b = np.asarray(second, dtype=np.float32)
+    a = a[:, :, None] if a.ndim == 2 else a
+    b = b[:, :, None] if b.ndim == 2 else b
+    if f.shape != (h, w, 2) or a.shape[:2] != (h, w) or b.shape != a.shape:
+        raise ValueError(f"flow (H, W, 2) and two images (H, W[, C]) of one size expected; got "
+                         f"{f.shape}, {a.shape}, {b.shape}")
+    xs, ys = _targets(f)
+    sampled = cv2.remap(np.ascontiguousarray(b), xs, ys, cv2.INTER_LINEAR, borderMode=cv2.BORDER_REPLICATE)
+    sampled = sampled[:, :, None] if sampled.ndim == 2 else sampled
+    cost = np.abs(sampled - a).sum(axis=2, dtype=np.float32)
+    if radius > 0:
+        cost = cv2.blur(cost, (2 * radius + 1, 2 * radius + 1), borderType=cv2.BORDER_REPLICATE)
+    tx, ty = np.rint(xs).astype(np.intp), np.rint(ys).astype(np.intp)
+    inside = ((tx >= 0) & (tx < w) & (ty >= 0) & (ty < h)).ravel()
+    src = np.flatnonzero(inside)
+    tgt = (ty * w + tx).ravel()[src]
+    c = cost.ravel()[src]
+    best = np.full(h * w, np.inf, np.float32)
+    np.minimum.at(best, tgt, c)
+    won = c <= best[tgt]
+    u, v = np.ascontiguousarray(f[:, :, 0]).ravel(), np.ascontiguousarray(f[:, :, 1]).ravel()
+    win_u, win_v = np.zeros(h * w, np.float32), np.zeros(h * w, np.float32)
+    win_u[tgt[won]] = u[src[won]]
+    win_v[tgt[won]] = v[src[won]]
+    j = np.float32(jump)
+    lose = ~won & ((np.abs(u[src] - win_u[tgt]) > j) | (np.abs(v[src] - win_v[tgt]) > j))
+    out = np.zeros(h * w, bool)
+    out[src[lose]] = True
+    return out.reshape(h, w)

@@ -51,10 +51,11 @@ from operators.composite._channels import matte_values
 from operators.vectors._encode import perceptual
 from operators.vectors.flow import neighbour
 from operators.vectors.channels import BWD, FWD, SMOOTHED, VECTORS
-from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_check
+from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_check, mapping_conflicts
 
 __all__ = ["VECTOR_SMOOTH", "VectorSmoothParams", "weighted_median", "edge_aware_smooth", "fill_occluded",
-           "smooth_direction", "DEFAULT_SIGMA_COLOR", "DOUBTFUL", "WEIGHT_FLOOR", "FILLED_WEIGHT", "FILL_TIE"]
+           "smooth_direction", "DEFAULT_SIGMA_COLOR", "DOUBTFUL", "WEIGHT_FLOOR", "FILLED_WEIGHT", "FILL_TIE",
+           "SUSPECT_JUMP", "edge_energy", "motion_edges"]
 
 #: Default colour similarity scale, in sRGB-encoded units (about 15 of 255 code values). Chosen
 #: here, not taken from a source; on Middlebury Motorcycle any value in 0.03..0.12 gave the same
@@ -71,6 +72,14 @@ DEFAULT_JUMP = 0.5
 DOUBTFUL = 0.5
 #: Fill candidates within this many pixels of the most background-like one count as tied.
 FILL_TIE = 0.5
+#: ``smooth_direction(suspect_jump=...)`` as ``midframe vectors`` uses it: a vector step of more
+#: than 1 px between neighbours marks both pixels for refilling. Measured with ``fill_rule="auto"``
+#: (before the uniqueness check): 0.5, 0.75 and 1 px gave 1.517, 1.524 and 1.529 px mean endpoint
+#: error on Middlebury 2014 Motorcycle (2 px: 1.547; off: 1.568), but 0.152, 0.147 and
+#: 0.147 px on the demo scene's visible pixels, hence 1.
+SUSPECT_JUMP = 1.0
+
+_CROSS = cv2.getStructuringElement(cv2.MORPH_CROSS, (3, 3))
 
 
 def _as_flow(flow: np.ndarray) -> np.ndarray:
@@ -358,8 +367,9 @@ def edge_aware_smooth(flow: np.ndarray, guide: np.ndarray | None, conf: np.ndarr
 
 # -- occlusion filling ---------------------------------------------------------------------------------
 def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = None, *,
-                  matte: np.ndarray | None = None, rule: Literal["dominant", "slower"] = "dominant",
-                  refill: np.ndarray | None = None) -> np.ndarray:
+                  matte: np.ndarray | None = None,
+                  rule: Literal["dominant", "slower", "auto", "colour"] = "dominant",
+                  refill: np.ndarray | None = None, sigma_color: float = DEFAULT_SIGMA_COLOR) -> np.ndarray:
     """Replace occluded vectors by the background side's vector.
 
     An occluded pixel shows a surface that is covered at the other sample: it belongs to the
@@ -380,6 +390,19 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
     - ``"slower"``: the candidate with the smallest vector. For a rectified, parallel stereo pair
       this is exact (the farther surface has the smaller disparity); for time it assumes a
       locked-off camera.
+    - ``"auto"``: both of the above, keeping the one whose filled field has the lower
+      edge-aware total variation ``sum_{p~q} exp(-|I_p - I_q|_1 / sigma_color) |f_p - f_q|_1``
+      over the 4-neighbour pairs (`edge_energy`): the fill that puts the motion edges on the
+      image's edges. What tells the two layers apart in the image is where the occluder's
+      outline is: the occluded strip continues the background's surface with no image edge
+      between them, while an image edge (the occluder's outline) separates it from the
+      foreground; the fill from the wrong side moves the motion edge off that outline onto the
+      strip's far end. One choice per call (a frame-wide vote, steadier than a per-pixel one);
+      with a matte, per side as for ``"dominant"``. On Middlebury 2014 Motorcycle (a stereo
+      pair with a large foreground, where the dominant fit lands between the layers) it
+      chooses ``"slower"``; on the layered scenes of the tests it chooses a rule that is right.
+    - ``"colour"``: no motion rule; the candidate whose guide colour is closest to the pixel's
+      (for pixels that are visible but doubtful, which belong to whichever side they look like).
 
     Candidates within ``FILL_TIE`` (0.5 px) of the best are tied; among them the one whose guide
     colour is closest to the pixel's wins (else the nearest one), so a pixel inside a region of
@@ -392,14 +415,17 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
     occ : ndarray, shape (H, W)
         Occlusion (> 0.5 = occluded). Occluded pixels are never used as candidates.
     guide : ndarray, shape (H, W), (H, W, 1) or (H, W, 3), optional
-        Perceptually encoded image (or a list of its (H, W) planes), for the tie-break.
+        Perceptually encoded image (or a list of its (H, W) planes), for the tie-break and for
+        ``"auto"`` (which without a guide weighs every pair alike).
     matte : ndarray, shape (H, W), optional
         Pixels > 0.5 inside, the rest outside; candidates come from the pixel's own side only,
         and the dominant motion is fitted per side.
-    rule : {"dominant", "slower"}
+    rule : {"dominant", "slower", "auto", "colour"}
     refill : ndarray, shape (H, W), optional
         Which occluded pixels to replace (> 0.5); default all of ``occ``. (``vector-smooth``
         leaves vectors that merely leave the frame as they are.)
+    sigma_color : float
+        Colour scale of ``"auto"``'s pair weights, in guide units.
 
     Returns
     -------
@@ -416,16 +442,90 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
     object in front of a square sliding out from behind it) explains both fields equally well,
     so a test on the two vector fields alone cannot choose. What differs between the two
     explanations is which surface is larger and which moves like the camera: hence
-    "dominant" (and, for parallel stereo where depth order is known from disparity, "slower").
+    "dominant" (and, for parallel stereo where depth order is known from disparity, "slower"),
+    and where the occluder's outline lies in the image: hence "auto".
     """
     f = _as_flow(flow)
-    h, w = f.shape[:2]
     out = f.copy()
+    if rule not in ("dominant", "slower", "auto", "colour"):
+        raise ValueError(f"unknown fill rule {rule!r}; use 'dominant', 'slower', 'auto' or 'colour'")
+    cand = _fill_candidates(f, occ, guide, matte, refill)
+    if cand is None:
+        return out
+    ys, xs = cand[0], cand[1]
+    if rule != "auto":
+        rows, vals = _pick(cand, None if rule == "colour" else _reference(f, cand, matte, rule))
+        out[ys[rows], xs[rows]] = vals
+        return out
+    fills = []
+    for r in ("dominant", "slower"):
+        rows, vals = _pick(cand, _reference(f, cand, matte, r))
+        filled = f.copy()
+        filled[ys[rows], xs[rows]] = vals
+        fills.append(filled)
+    # only the pairs touching a pixel where the two fills differ can differ in energy
+    changed = (fills[0] != fills[1]).any(axis=2)
+    if not changed.any():
+        return fills[0]
+    near = cv2.dilate(changed.astype(np.uint8), _CROSS) > 0
+    side = _side(matte, f.shape[:2])
+    planes = F.guide_planes(guide, f.shape[:2])
+    if side is None:
+        e = [edge_energy(g, planes, sigma_color, near) for g in fills]
+        return fills[int(e[1] < e[0])]
+    for s in (True, False):
+        here = side == s
+        e = [edge_energy(g, planes, sigma_color, near & here) for g in fills]
+        pick = fills[int(e[1] < e[0])]
+        out[here] = pick[here]
+    return out
+
+
+def edge_energy(flow: np.ndarray, planes: list[np.ndarray], sigma_color: float,
+                where: np.ndarray | None = None) -> float:
+    """Edge-aware total variation of a vector field: the smaller, the better its motion edges
+    follow the image's edges.
+
+    ``sum_{p~q} exp(-|I_p - I_q|_1 / sigma_color) * |f_p - f_q|_1`` over the horizontal and
+    vertical neighbour pairs (both in ``where`` when given), ``I`` the guide ``planes`` (none:
+    every weight 1). The energy of the edge-aware MRF prior of the estimator (``_prior``) with
+    an L1 penalty (common practice of edge-aware smoothness terms). With ``where`` only those
+    pairs are visited (work proportional to their number).
+    """
+    h, w = flow.shape[:2]
+    total = 0.0
+    for axis in (0, 1):
+        if where is None:
+            first = np.ones((h - 1, w) if axis == 0 else (h, w - 1), bool)
+        else:
+            first = where[:-1] & where[1:] if axis == 0 else where[:, :-1] & where[:, 1:]
+        ys, xs = np.nonzero(first)
+        p = ys * w + xs
+        q = p + (w if axis == 0 else 1)
+        d = np.zeros(len(p), np.float32)
+        for c in range(2):
+            comp = np.ascontiguousarray(flow[:, :, c]).ravel()
+            d += np.abs(comp[q] - comp[p])
+        if planes:
+            g = np.zeros(len(p), np.float32)
+            for plane in planes:
+                flat = plane.ravel()
+                g += np.abs(flat[q] - flat[p])
+            d *= np.exp(g * np.float32(-1.0 / sigma_color))
+        total += float(d.sum(dtype=np.float64))
+    return total
+
+
+def _fill_candidates(f: np.ndarray, occ: np.ndarray, guide, matte, refill):
+    """The pixels to refill and their candidates (see `fill_occluded`), or None if none:
+    ``(ys, xs, cand_v (n, 4, 2), ok (n, 4), tie (n, 4), valid (H, W))``, ``tie`` the tie-break
+    cost, ``valid`` the non-occluded pixels."""
+    h, w = f.shape[:2]
     occ_b = np.asarray(occ) > 0.5
     todo = occ_b if refill is None else (occ_b & (np.asarray(refill) > 0.5))
     ys, xs = np.nonzero(todo)
     if len(ys) == 0:
-        return out
+        return None
     side = _side(matte, (h, w))
     valid = ~occ_b
 
@@ -446,27 +546,6 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
     ok = np.stack([cand_x[:, 0] >= 0, cand_x[:, 1] >= 0, cand_y[:, 2] >= 0, cand_y[:, 3] >= 0], axis=1)
     cy, cx = np.where(ok, cand_y, 0), np.where(ok, cand_x, 0)
     cand_v = f[cy, cx]                                         # (n, 4, 2)
-
-    if rule == "slower":
-        ref = np.zeros((len(ys), 2), np.float32)
-    elif rule == "dominant":
-        ref = np.empty((len(ys), 2), np.float32)
-        groups = [(None, np.ones(len(ys), bool))] if side is None else \
-            [(s, side[ys, xs] == s) for s in (True, False)]
-        for s, members in groups:
-            if not members.any():
-                continue
-            region = valid if s is None else (valid & (side == s))
-            model = _dominant(f, region)
-            pts = np.stack([xs[members], ys[members], np.ones(int(members.sum()))], axis=1)
-            ref[members] = (pts @ model.T).astype(np.float32)
-    else:
-        raise ValueError(f"unknown fill rule {rule!r}; use 'dominant' or 'slower'")
-
-    dist_bg = np.linalg.norm(cand_v - ref[:, None, :], axis=2)
-    dist_bg[~ok] = np.inf
-    best = dist_bg.min(axis=1)
-    tied = dist_bg <= best[:, None] + FILL_TIE
     reach = np.abs(cand_y - ys[:, None]) + np.abs(cand_x - xs[:, None])
     planes = F.guide_planes(guide, (h, w))
     if planes:
@@ -476,12 +555,42 @@ def fill_occluded(flow: np.ndarray, occ: np.ndarray, guide: np.ndarray | None = 
             tie += d * d
     else:
         tie = reach.astype(np.float32)
-    tie = np.where(tied, tie, np.inf)
-    pick = np.argmin(tie, axis=1)
-    found = np.isfinite(best)
-    rows = np.nonzero(found)[0]
-    out[ys[rows], xs[rows]] = cand_v[rows, pick[rows]]
-    return out
+    return ys, xs, cand_v, ok, tie, valid
+
+
+def _reference(f: np.ndarray, cand, matte, rule: str) -> np.ndarray:
+    """The background motion (n, 2) at the pixels of `_fill_candidates` under a rule."""
+    ys, xs, valid = cand[0], cand[1], cand[5]
+    if rule == "slower":
+        return np.zeros((len(ys), 2), np.float32)
+    side = _side(matte, f.shape[:2])
+    ref = np.empty((len(ys), 2), np.float32)
+    groups = [(None, np.ones(len(ys), bool))] if side is None else \
+        [(s, side[ys, xs] == s) for s in (True, False)]
+    for s, members in groups:
+        if not members.any():
+            continue
+        region = valid if s is None else (valid & (side == s))
+        model = _dominant(f, region)
+        pts = np.stack([xs[members], ys[members], np.ones(int(members.sum()))], axis=1)
+        ref[members] = (pts @ model.T).astype(np.float32)
+    return ref
+
+
+def _pick(cand, ref: np.ndarray | None) -> tuple[np.ndarray, np.ndarray]:
+    """The candidate nearest ``ref`` (ties by colour; None: all tied) per pixel: (rows that found
+    one, vectors)."""
+    cand_v, ok, tie = cand[2:5]
+    if ref is None:
+        dist_bg = np.zeros(ok.shape, np.float32)
+    else:
+        dist_bg = np.linalg.norm(cand_v - ref[:, None, :], axis=2)
+    dist_bg[~ok] = np.inf
+    best = dist_bg.min(axis=1)
+    tied = dist_bg <= best[:, None] + FILL_TIE
+    pick = np.argmin(np.where(tied, tie, np.inf), axis=1)
+    rows = np.nonzero(np.isfinite(best))[0]
+    return rows, cand_v[rows, pick[rows]]
 
 
 def _dominant(flow: np.ndarray, region: np.ndarray, samples: int = 20000) -> np.ndarray:
@@ -495,15 +604,32 @@ def _dominant(flow: np.ndarray, region: np.ndarray, samples: int = 20000) -> np.
     return F.robust_affine(xs.astype(np.float64), ys.astype(np.float64), flow[ys, xs].astype(np.float64))
 
 
+def motion_edges(flow: np.ndarray, jump: float) -> np.ndarray:
+    """Pixels (H, W) bool with a 4-neighbour whose vector differs by more than ``jump`` pixels
+    in x or y: the strip one pixel wide on both sides of every motion edge."""
+    f = _as_flow(flow)
+    u, v = np.ascontiguousarray(f[:, :, 0]), np.ascontiguousarray(f[:, :, 1])
+    j = np.float32(jump)
+    dx = (np.abs(u[:, 1:] - u[:, :-1]) > j) | (np.abs(v[:, 1:] - v[:, :-1]) > j)
+    dy = (np.abs(u[1:] - u[:-1]) > j) | (np.abs(v[1:] - v[:-1]) > j)
+    out = np.zeros(f.shape[:2], bool)
+    out[:, 1:] |= dx
+    out[:, :-1] |= dx
+    out[1:] |= dy
+    out[:-1] |= dy
+    return out
+
+
 # -- one direction, all steps ------------------------------------------------------------------------
 def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.ndarray | None, *,
                      matte: np.ndarray | None = None, tolerance: float = PAPER_TOLERANCE,
                      relative: float = PAPER_RELATIVE, fill: bool = True,
-                     fill_rule: Literal["dominant", "slower"] = "dominant", median_radius: int = 2,
+                     fill_rule: Literal["dominant", "slower", "auto"] = "dominant", median_radius: int = 2,
                      median_where: Literal["doubtful", "everywhere"] = "doubtful",
                      median_skip: float = 0.25, sigma_color: float = DEFAULT_SIGMA_COLOR,
                      smooth_radius: int = 4, smooth_strength: float = 0.5, smooth_subsample: int = 2,
-                     smooth_jump: float | None = DEFAULT_JUMP,
+                     smooth_jump: float | None = DEFAULT_JUMP, suspect_jump: float | None = None,
+                     other: np.ndarray | None = None,
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Consistency check, fill, weighted median and edge-aware smoothing of one direction.
 
@@ -518,7 +644,17 @@ def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.nda
         Perceptually encoded image at this sample.
     matte, tolerance, relative, fill, fill_rule, median_radius, median_where, median_skip,
     sigma_color, smooth_radius, smooth_strength, smooth_subsample, smooth_jump
-        As in `VectorSmoothParams` (``matte``: (H, W) values, > 0.5 = inside).
+        As in `VectorSmoothParams` (``matte``: (H, W) values, > 0.5 = inside); ``fill_rule``
+        may also be ``"auto"`` (`fill_occluded`).
+    suspect_jump : float, optional
+        With ``fill``: pixels on either side of a motion edge, where a 4-neighbour's vector
+        differs by more than this many pixels in x or y, are refilled as if occluded (see
+        Notes). None: off.
+    other : ndarray, shape like ``guide``, optional
+        With ``fill``: the neighbour's image (same encoding as ``guide``). Pixels that lose a
+        many-to-one conflict of the vectors (`consistency.mapping_conflicts`: several pixels
+        landing on one pixel of the neighbour, the worse matches) are refilled like occluded
+        ones (see Notes). None (or no ``guide``): off.
 
     Returns
     -------
@@ -537,6 +673,24 @@ def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.nda
     ``FILLED_WEIGHT`` (0.5) so the filters keep the background vector the fill chose. Vectors
     that leave the frame are not refilled (nothing says they are wrong); they weigh only
     ``WEIGHT_FLOOR`` and so take their visible neighbours' values in the smoothing.
+
+    ``suspect_jump`` addresses edge fattening: beside an occluding edge both directions tend to
+    carry the foreground's vector a few pixels into the background, where the forward-backward
+    check passes the wrong pair (on Middlebury 2014 Motorcycle only about 60 % of the truly
+    occluded pixels fail it). The one-pixel strip on both sides of every motion edge is
+    therefore treated as unreliable: it is not used as a fill candidate (so occluded pixels
+    reach past it), and its visible pixels take the vector of the nearest reliable pixel along
+    their row and column whose colour is closest to theirs (`fill_occluded`'s rule
+    ``"colour"``), so a background-coloured pixel carrying the foreground's vector returns to
+    the background and a foreground pixel keeps its own side's vector. Their confidence stays
+    as measured; in the filters they weigh ``FILLED_WEIGHT``.
+
+    ``other`` adds the uniqueness of the mapping to the forward-backward check: beside an
+    occluding edge where both directions carry the occluder's vector, an occluded pixel passes
+    the round trip but lands on a pixel of the neighbour that its truly corresponding visible
+    pixel also lands on, with a better match; it is refilled like an occluded pixel (its
+    confidence and ``occ`` stay as measured). On Motorcycle (with ``fill_rule="auto"`` and
+    ``suspect_jump`` 1) this took ``midframe vectors`` from 1.529 to 1.503 px mean endpoint error.
     """
     f = _as_flow(flow)
     h, w = f.shape[:2]
@@ -544,14 +698,29 @@ def smooth_direction(flow: np.ndarray, reverse: np.ndarray | None, guide: np.nda
         zero = np.zeros((h, w), np.float32)
         return f.copy(), zero, zero.copy()
     conf, occ, outside = fb_check(f, reverse, tolerance=tolerance, relative=relative)
+    conflicts = None
+    if fill and other is not None and guide is not None:
+        here = np.dstack(guide) if isinstance(guide, (list, tuple)) else guide
+        conflicts = mapping_conflicts(f, here, other) & ~outside
     guide = F.guide_planes(guide, (h, w)) or None        # split once for every step
     out = f
     weight = conf.copy()
     if fill:
         refill = (occ > 0.5) & ~outside
+        hidden, suspect = occ, None
+        if conflicts is not None:
+            refill |= conflicts
+            hidden = np.maximum(occ, conflicts.astype(np.float32))
+        if suspect_jump is not None:
+            suspect = motion_edges(f, suspect_jump) & ~refill & ~outside
+            hidden = np.maximum(hidden, suspect.astype(np.float32))
         if refill.any():
-            out = fill_occluded(out, occ, guide, matte=matte, rule=fill_rule, refill=refill)
+            out = fill_occluded(out, hidden, guide, matte=matte, rule=fill_rule, refill=refill,
+                                sigma_color=sigma_color)
             weight[refill] = FILLED_WEIGHT
+        if suspect is not None and suspect.any():
+            out = fill_occluded(out, hidden, guide, matte=matte, rule="colour", refill=suspect)
+            weight[suspect] = FILLED_WEIGHT
     doubtful = None
     if median_radius > 0:
         if median_where == "everywhere":
