@@ -439,7 +439,6 @@ def _retime_section(summary: Mapping[str, Any], root: str) -> list[str]:
 
 
 def _sweep_section(summary: Mapping[str, Any], root: str) -> list[str]:
-    e = html.escape
     w = summary["sweep"]
     files = summary["files"]
     inb, cams, fl = w["inbetweens"], w["cameras_err"], w["flicker"]

@@ -498,7 +498,7 @@ def _solve_level(p: Preset, plan: _Plan, k: int, warps: int, iters: int, f1: _Fe
     ``occ`` (previous level's occlusion field, or None) lowers the likelihood weight of the
     pixels judged occluded and biases them toward the background motion.
     """
-    l1, l2 = f1.level, f2.level
+    l1 = f1.level
     lh, lw = l1.shape
     xs, ys = pixel_grid(lh, lw)
     if u is None:
