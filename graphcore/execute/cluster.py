@@ -29,7 +29,7 @@ from typing import Any
 
 from graphcore.errors import InputError
 from graphcore.evaluate import Evaluator
-from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task
+from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, chunk_count
 
 __all__ = ["DaskExecutor", "CONNECT_TIMEOUT"]
 
@@ -128,7 +128,7 @@ class DaskExecutor:
                        "memory_bytes": self.memory_bytes, "protected": sorted(ev.protected_paths),
                        "plugins": self.plugins, "threads": 1}
             digest = hashlib.sha256(json.dumps(payload, sort_keys=True, default=str).encode()).hexdigest()
-            n_chunks = min(len(tasks), self.jobs * 4)
+            n_chunks = chunk_count(len(tasks), self.jobs)
             bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
             chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
             run_id = uuid.uuid4().hex[:8]

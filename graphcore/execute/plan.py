@@ -99,6 +99,23 @@ def sink_views(ev: Evaluator, sink: str) -> list[int] | None:
     return list(views)
 
 
+#: Fewest tasks per chunk a worker is given when there are enough to go round.
+MIN_CHUNK = 8
+
+
+def chunk_count(tasks: int, workers: int) -> int:
+    """How many contiguous chunks to cut ``tasks`` into for ``workers`` processes.
+
+    A chunk boundary costs the upstream results both sides need (a retime's vectors of two or three
+    source frames, computed again in the other worker unless a shared disk cache holds them), so
+    chunks hold at least ``MIN_CHUNK`` tasks; up to four per worker, so a slow chunk does not leave
+    the others idle at the end. At least one per worker while there are tasks.
+    """
+    if tasks <= 0:
+        return 0
+    return max(min(workers, tasks), min(workers * 4, tasks // MIN_CHUNK))
+
+
 def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:
     """One task per sink per frame (per frame and view for a per-view sink); a frame outside a
     sink's input range fails on its own, with the operator's message (e.g. the missing file),

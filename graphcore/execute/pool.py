@@ -20,7 +20,7 @@ from typing import Any
 from graphcore.cache import Cache, DiskCache, MemoryCache
 from graphcore.errors import MidframeError
 from graphcore.evaluate import Evaluator
-from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, render_task
+from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, chunk_count, render_task
 
 __all__ = ["PoolExecutor"]
 
@@ -86,9 +86,8 @@ class PoolExecutor:
                    "memory_bytes": max(1 << 20, self.memory_bytes // self.jobs),  # --memory is the total
                    "protected": sorted(ev.protected_paths),
                    "plugins": self.plugins, "threads": max(1, (os.cpu_count() or 1) // self.jobs)}
-        # near-equal contiguous chunks, a few per worker: neighbouring frames stay together and no
-        # worker is left with a long tail
-        n_chunks = min(len(tasks), self.jobs * 4)
+        # near-equal contiguous chunks (see plan.chunk_count): neighbouring frames stay together
+        n_chunks = chunk_count(len(tasks), self.jobs)
         bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
         chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
         ctx = mp.get_context("forkserver")

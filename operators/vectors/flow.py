@@ -166,6 +166,7 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
     channels = match_channels(cur, params.channels)
     here = _encoded(cur, channels)
     planes = [np.zeros((cur.height, cur.width, 2), np.float32)] * 2   # fwd, bwd; zero without a neighbour
+    jobs = []
     for slot, other, name in ((0, nxt, "next"), (1, prev, "previous")):
         if other is None:
             continue
@@ -174,7 +175,20 @@ def _compute(params: FlowParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
                           f"{cur.width}x{cur.height}", field="image",
                           fix="make every frame or camera the same size, e.g. with a `resize` node")
         match_channels(other, channels)
-        planes[slot] = estimate_pair(here, _encoded(other, channels), params)
+        jobs.append((slot, _encoded(other, channels)))
+    if len(jobs) == 2 and params.engine == "midframe" and cv2.getNumThreads() >= 2:
+        # the two directions side by side when this process may use two cores (a serial render;
+        # pool and Dask workers pin OpenCV to one thread each and run them one after the other).
+        # Each direction's result is the same either way: nothing is shared but read-only inputs.
+        from concurrent.futures import ThreadPoolExecutor
+
+        with ThreadPoolExecutor(2) as pool:
+            done = [pool.submit(estimate_pair, here, other, params) for _, other in jobs]
+            for (slot, _), fut in zip(jobs, done):
+                planes[slot] = fut.result()
+    else:
+        for slot, other in jobs:
+            planes[slot] = estimate_pair(here, other, params)
     out = cv2.merge([*cv2.split(planes[0]), *cv2.split(planes[1])])   # one interleaving pass
     meta = {"vectors.engine": params.engine, "vectors.quality": params.quality, "vectors.axis": params.axis}
     return Image(out, FWD + BWD, meta)

@@ -138,3 +138,25 @@ def test_flow_estimate_encodes_each_frame_once(monkeypatch):
     copy = Image(frames[2].pixels.copy(), ("R", "G", "B"))
     again = flow_module._encoded(copy, ("R", "G", "B"))
     assert again is not first and np.array_equal(again, first)
+
+
+def test_flow_estimate_gives_the_same_vectors_with_one_thread_or_two():
+    # With two OpenCV threads allowed (a serial render) the two directions run side by side; pool and
+    # Dask workers allow one. The vectors must not depend on it (pixel-identical renders).
+    import cv2
+
+    rng = np.random.default_rng(4)
+    base = cv2.GaussianBlur(rng.random((60, 90, 3)).astype(np.float32), (0, 0), 1.5)
+    frames = [Image(np.roll(base, 2 * k, axis=1), ("R", "G", "B")) for k in range(3)]
+    params = flow_module.FlowParams(quality="draft")
+    before = cv2.getNumThreads()
+    try:
+        out = {}
+        for n in (1, 2):
+            cv2.setNumThreads(n)
+            flow_module._ENCODED.clear()
+            out[n] = flow_module._compute(params, {"image": tuple(frames)}, None).pixels
+    finally:
+        cv2.setNumThreads(before)
+    np.testing.assert_array_equal(out[1], out[2])
+    assert abs(float(np.median(out[1][..., 0])) - 2.0) < 0.1        # fwd: 2 px right
