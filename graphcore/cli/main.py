@@ -118,6 +118,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--verify", action="store_true", help="stats: also check every entry's checksum "
                    "(reads everything) and remove damaged ones")
 
+    p = sub.add_parser("explain", help="how a frame midframe wrote was made (from its provenance header)")
+    p.add_argument("file", help="an EXR file written by midframe")
+    p.add_argument("--json", action="store_true", help="the provenance record as JSON")
+
     p = sub.add_parser("chunks", help="split a render into frame chunks for a farm queue")
     _add_graph_args(p)
     p.add_argument("--frames", type=_frames_arg, metavar="A-B", help="frames to split (default: all the "
@@ -200,6 +204,66 @@ def cmd_check(args: argparse.Namespace) -> int:
     check_targets(ev, tasks, protected_paths(ev))
     span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
     print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
+    return EXIT_OK
+
+
+def _group_sources(paths: list[str]) -> list[str]:
+    """File paths as compact lines: ``folder/name.####.exr  frames 1001-1010`` per numbered run."""
+    runs: dict[tuple[str, int, str], list[int]] = {}
+    lone: list[str] = []
+    for p in paths:
+        m = re.fullmatch(r"(.*?)(\d+)(\.[A-Za-z0-9]+)", p)
+        if m is None:
+            lone.append(p)
+            continue
+        runs.setdefault((m.group(1), len(m.group(2)), m.group(3)), []).append(int(m.group(2)))
+    out = [f"{head}{'#' * width}{tail}  frames {compact_frames(nums)}" for (head, width, tail), nums in sorted(runs.items())]
+    return out + lone
+
+
+def cmd_explain(args: argparse.Namespace) -> int:
+    import os
+
+    from operators.io.exr import read_provenance
+
+    if not os.path.isfile(args.file):
+        raise UsageError("no such file", file=args.file, field="file", fix="name an EXR file midframe wrote")
+    record = read_provenance(args.file)
+    if record is None:
+        raise UsageError("the file has no midframe provenance header (it was not written by midframe's "
+                         "write node)", file=args.file, field="file", fix="name an EXR file midframe wrote")
+    if args.json:
+        print(json.dumps(record, indent=2, sort_keys=True))
+        return EXIT_OK
+    from graphcore.registry import default_registry
+
+    reg = default_registry()
+    where = f"frame {record.get('frame')}" + (f" view {record.get('view')}" if record.get("view") not in (None, "0") else "")
+    print(f"{args.file}")
+    print(f"  made by {record.get('tool', 'midframe')} {record.get('tool_version', '?')}, output node "
+          f"'{record.get('node')}' at {where}")
+    print(f"  graph: {record.get('graph_file') or '(not from a file)'}")
+    print(f"  graph hash: {record.get('graph_hash', '?')}")
+    if record.get("key"):
+        print(f"  content key: {record['key']}  (midframe run --resume compares it)")
+    nodes = record.get("nodes") or []
+    print(f"  nodes on its path ({len(nodes)}), params that differ from the operator's defaults:")
+    for node in nodes:
+        params = dict(node.get("params") or {})
+        shown = params
+        try:
+            fields = reg.get(node["op"]).params.model_fields
+            base = {k: json.loads(json.dumps(f.get_default(call_default_factory=True), default=list))
+                    for k, f in fields.items() if not f.is_required()}
+            shown = {k: v for k, v in params.items() if k not in base or base[k] != v}
+        except Exception:        # unknown operator (plugin not installed here): show every set param
+            shown = {k: v for k, v in params.items() if v is not None}
+        text = ", ".join(f"{k}={json.dumps(v)}" for k, v in sorted(shown.items())) or "(all defaults)"
+        print(f"    {node.get('id')} ({node.get('op')}): {text}")
+    sources = list(record.get("sources") or [])
+    print(f"  source files ({len(sources)}):")
+    for line in _group_sources(sources):
+        print(f"    {line}")
     return EXIT_OK
 
 
@@ -430,6 +494,7 @@ def cmd_vectors(args: argparse.Namespace) -> int:
 
 
 COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "chunks": cmd_chunks, "cache": cmd_cache,
+            "explain": cmd_explain,
             "ops": cmd_ops,
             "schema": cmd_schema, "graph": cmd_graph, "demo": cmd_demo}
 
