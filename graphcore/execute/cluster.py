@@ -29,7 +29,7 @@ from typing import Any
 
 from graphcore.errors import InputError
 from graphcore.evaluate import Evaluator
-from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, chunk_count
+from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, split_chunks
 
 __all__ = ["DaskExecutor", "CONNECT_TIMEOUT"]
 
@@ -61,29 +61,18 @@ def _keep_freed_memory() -> None:
 def _run_chunk(payload: dict[str, Any], digest: str, tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
     """Runs on a Dask worker: render ``tasks`` with the evaluator of ``payload`` (built once per
     worker process and render)."""
-    from graphcore.execute import pool
-    from graphcore.execute.plan import render_task
+    from graphcore.execute.pool import failed_chunk, run_chunk, start_evaluator
 
     ev = _evaluators.get(digest)
     if ev is None:
         _keep_freed_memory()
-        saved = dict(pool._worker)
-        pool._worker.clear()
-        pool._init_worker(payload)
-        if "error" in pool._worker:
-            err = pool._worker["error"]
-            pool._worker.clear()
-            pool._worker.update(saved)
-            return [FrameResult(t.node_id, t.frame, "failure", err, view=t.view) for t in tasks], {}
-        ev = pool._worker["ev"]
-        pool._worker.clear()
-        pool._worker.update(saved)
+        try:
+            ev = start_evaluator(payload)
+        except Exception as exc:
+            return failed_chunk(tasks, f"worker start-up failed: {type(exc).__name__}: {exc}")
         _evaluators.clear()            # one render at a time per worker: drop older evaluators
         _evaluators[digest] = ev
-    ev.calls.clear()
-    ev.plan([(t.node_id, t.sample) for t in tasks])
-    results = [render_task(ev, t) for t in tasks]
-    return results, dict(ev.calls)
+    return run_chunk(ev, tasks)
 
 
 class DaskExecutor:
@@ -128,6 +117,8 @@ class DaskExecutor:
     def run(self, ev: Evaluator, tasks: list[Task], on_result: ProgressFn | None = None) -> RunReport:
         from dask.distributed import as_completed
 
+        from graphcore.execute.pool import take_results
+
         report = RunReport()
         if not tasks:
             return report
@@ -144,9 +135,7 @@ class DaskExecutor:
                        "memory_bytes": self.memory_bytes, "protected": sorted(ev.protected_paths),
                        "plugins": self.plugins, "threads": 1}
             digest = hashlib.sha256(json.dumps(payload, sort_keys=True, default=str).encode()).hexdigest()
-            n_chunks = chunk_count(len(tasks), self.jobs)
-            bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
-            chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
+            chunks = split_chunks(tasks, self.jobs)
             run_id = uuid.uuid4().hex[:8]
             futures = [client.submit(_run_chunk, payload, digest, c, key=f"midframe-{run_id}-{i}",
                                      retries=RETRIES, pure=False) for i, c in enumerate(chunks)]
@@ -163,14 +152,7 @@ class DaskExecutor:
                                for t in chunks[i]]
                     chunk_calls = {}
                 calls.update(chunk_calls)
-                for r in results:
-                    for w in r.warnings:
-                        if w not in warned:
-                            warned.add(w)
-                            log.warning("%s", w)
-                    collected.append(r)
-                    if on_result is not None:
-                        on_result(r)
+                take_results(results, collected, warned, on_result)
         finally:
             client.close()
             if cluster is not None:

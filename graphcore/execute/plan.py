@@ -14,7 +14,7 @@ from graphcore.evaluate import Evaluator, NodeFailure
 from graphcore.registry import FrameRange
 from graphcore.sample import Sample
 
-__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "split_complete", "output_frames", "protected_paths",
+__all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "split_complete", "split_chunks", "chunk_count", "output_frames", "protected_paths",
            "check_targets", "render_task"]
 
 
@@ -114,6 +114,13 @@ def chunk_count(tasks: int, workers: int) -> int:
     if tasks <= 0:
         return 0
     return max(min(workers, tasks), min(workers * 4, tasks // MIN_CHUNK))
+
+
+def split_chunks(tasks: list[Task], workers: int) -> list[list[Task]]:
+    """``tasks`` cut into ``chunk_count`` near-equal contiguous chunks, in order."""
+    n = chunk_count(len(tasks), workers)
+    bounds = [round(i * len(tasks) / n) for i in range(n + 1)]
+    return [tasks[bounds[i]:bounds[i + 1]] for i in range(n) if bounds[i] < bounds[i + 1]]
 
 
 def make_tasks(ev: Evaluator, frames: Iterable[int]) -> list[Task]:

@@ -20,9 +20,9 @@ from typing import Any
 from graphcore.cache import Cache, DiskCache, MemoryCache
 from graphcore.errors import MidframeError
 from graphcore.evaluate import Evaluator
-from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, chunk_count, render_task
+from graphcore.execute.plan import FrameResult, ProgressFn, RunReport, Task, render_task, split_chunks
 
-__all__ = ["PoolExecutor"]
+__all__ = ["PoolExecutor", "start_evaluator", "run_chunk", "failed_chunk", "take_results"]
 
 _worker: dict[str, Any] = {}
 log = logging.getLogger("midframe.render")
@@ -30,22 +30,36 @@ log = logging.getLogger("midframe.render")
 
 def _init_worker(payload: dict[str, Any]) -> None:
     try:
-        _start_worker(payload)
+        _worker["ev"] = start_evaluator(payload)
     except Exception as exc:  # reported per task by _run_chunk, not as a dead pool
         import traceback
 
         _worker["error"] = f"worker start-up failed: {type(exc).__name__}: {exc}\n{traceback.format_exc()}"
 
 
-def _start_worker(payload: dict[str, Any]) -> None:
+def take_results(results: list[FrameResult], collected: list[FrameResult], warned: set[str],
+                 on_result: ProgressFn | None) -> None:
+    """A finished chunk in the parent: each warning logged once per render, each result kept and
+    reported."""
+    for r in results:
+        for w in r.warnings:
+            if w not in warned:
+                warned.add(w)
+                log.warning("%s", w)
+        collected.append(r)
+        if on_result is not None:
+            on_result(r)
+
+
+def start_evaluator(payload: dict[str, Any]) -> Evaluator:
+    """A worker process's evaluator for a render: OpenCV and BLAS pinned to ``payload['threads']``,
+    the graph rebuilt from plain data, the shared disk cache opened (also used by the Dask executor)."""
     threads = payload.get("threads", 1)
     for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
         os.environ[var] = str(threads)
     import cv2
 
     cv2.setNumThreads(threads)
-    import logging
-
     # operator warnings travel back in FrameResult.warnings and are logged once by the parent
     logging.getLogger("midframe.render").setLevel(logging.ERROR)
     from graphcore.registry import Registry
@@ -55,17 +69,25 @@ def _start_worker(payload: dict[str, Any]) -> None:
     graph = graph_from_source(payload["source"], registry=registry, file=payload["file"])
     disk = DiskCache(payload["cache_dir"]) if payload.get("cache_dir") else None
     cache = Cache(MemoryCache(payload["memory_bytes"]), disk)
-    _worker["ev"] = Evaluator(graph, registry, cache, protected_paths=frozenset(payload["protected"]))
+    return Evaluator(graph, registry, cache, protected_paths=frozenset(payload["protected"]))
 
 
-def _run_chunk(tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
-    if "error" in _worker:
-        return [FrameResult(t.node_id, t.frame, "failure", _worker["error"], view=t.view) for t in tasks], {}
-    ev: Evaluator = _worker["ev"]
+def run_chunk(ev: Evaluator, tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
+    """Render ``tasks`` (a contiguous chunk) on ``ev``; returns the results and the operator calls."""
     ev.calls.clear()
     ev.plan([(t.node_id, t.sample) for t in tasks])
     results = [render_task(ev, t) for t in tasks]
     return results, dict(ev.calls)
+
+
+def failed_chunk(tasks: list[Task], message: str) -> tuple[list[FrameResult], dict[str, int]]:
+    return [FrameResult(t.node_id, t.frame, "failure", message, view=t.view) for t in tasks], {}
+
+
+def _run_chunk(tasks: list[Task]) -> tuple[list[FrameResult], dict[str, int]]:
+    if "error" in _worker:
+        return failed_chunk(tasks, _worker["error"])
+    return run_chunk(_worker["ev"], tasks)
 
 
 class PoolExecutor:
@@ -87,9 +109,7 @@ class PoolExecutor:
                    "protected": sorted(ev.protected_paths),
                    "plugins": self.plugins, "threads": max(1, (os.cpu_count() or 1) // self.jobs)}
         # near-equal contiguous chunks (see plan.chunk_count): neighbouring frames stay together
-        n_chunks = chunk_count(len(tasks), self.jobs)
-        bounds = [round(i * len(tasks) / n_chunks) for i in range(n_chunks + 1)]
-        chunks = [tasks[bounds[i]:bounds[i + 1]] for i in range(n_chunks) if bounds[i] < bounds[i + 1]]
+        chunks = split_chunks(tasks, self.jobs)
         ctx = mp.get_context("forkserver")
         collected: list[FrameResult] = []
         calls: Counter[str] = Counter()
@@ -101,14 +121,7 @@ class PoolExecutor:
                 for fut in as_completed(futures):
                     results, chunk_calls = fut.result()
                     calls.update(chunk_calls)
-                    for r in results:
-                        for w in r.warnings:
-                            if w not in warned:
-                                warned.add(w)
-                                log.warning("%s", w)
-                        collected.append(r)
-                        if on_result is not None:
-                            on_result(r)
+                    take_results(results, collected, warned, on_result)
         except BrokenProcessPool as exc:
             raise MidframeError(f"a worker process died ({exc}); {len(collected)} of {len(tasks)} frames "
                                 "finished. Out of memory is the usual cause: try fewer --jobs or a smaller "
