@@ -33,7 +33,8 @@ from graphcore.registry.operator import FrameRange, OpContext, Operator
 from graphcore.sample import Sample
 from operators.io import colorspace, exr, raster, sequence
 from operators.io import transfer as tf
-from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
+from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_colour_rule,
+                                  check_path_tokens, check_view_token, fill_view, split_view,
                                   extension, resolved)
 
 __all__ = ["READ", "ReadParams", "read_file"]
@@ -79,12 +80,7 @@ class ReadParams(BaseModel):
     @field_validator("path")
     @classmethod
     def valid_path(cls, v: str) -> str:
-        try:
-            return check_pattern(v)
-        except ValueError as exc:
-            if "more than one frame token" in str(exc):
-                return v  # a frame and a camera token: checked with view_token below
-            raise
+        return check_path_tokens(v)
 
     @field_validator("channels")
     @classmethod
@@ -93,67 +89,14 @@ class ReadParams(BaseModel):
 
     @model_validator(mode="after")
     def _one_colour_rule(self) -> "ReadParams":
-        if self.colorspace is not None and self.transfer != "auto":
-            raise ValueError(f"transfer {self.transfer!r} and colorspace {self.colorspace!r} both say how "
-                             "colour is encoded; set one of them (colorspace for a named OpenColorIO "
-                             "space, transfer for the built-in curves)")
-        if self.ocio_config is not None and self.colorspace is None:
-            raise ValueError("ocio_config is set but no colorspace is named; name the file's colour "
-                             "space in 'colorspace' or remove ocio_config")
+        check_colour_rule(self.transfer, self.colorspace, self.ocio_config, "the file's colour space")
         return self
 
     @model_validator(mode="after")
     def _two_numbers(self) -> "ReadParams":
-        if self.view_token is None:
-            try:
-                check_pattern(self.path)
-            except ValueError as exc:
-                raise ValueError(f"{exc}; if one of them numbers the cameras of a rig, name it in "
-                                 "view_token (e.g. '%02d')") from None
-            return self
-        if self.axis != "frame":
-            raise ValueError("with view_token the path's other token numbers frames: set axis to "
-                             "'frame' (the view comes from view_token)")
-        per_camera = fill_view(self.path, self.view_token, 1)
-        check_pattern(per_camera)
-        if not sequence.is_sequence(per_camera):
-            raise ValueError(f"path {self.path!r} has no frame token besides the view_token "
-                             f"{self.view_token!r}; for one still per camera use axis 'view' "
-                             "without view_token")
+        check_view_token(self.path, self.view_token, self.axis, what="the cameras of a rig",
+                         no_frame="for one still per camera use axis 'view' without view_token")
         return self
-
-
-_VIEW_TOKEN = re.compile(r"%(0\d+)?d|#+")
-
-
-def _split_view(path: str, token: str) -> tuple[str, int, str]:
-    """``(text before, padding width, text after)`` of the one occurrence of ``token`` in ``path``
-    (ValueError if the token is malformed, absent or there twice)."""
-    form = _VIEW_TOKEN.fullmatch(token)
-    if form is None:
-        raise ValueError(f"view_token {token!r} is not a number token; use %d, %02d or ##")
-    hits = [m for m in re.finditer(r"%%|%(0\d+)?d|#+", path) if m.group(0) == token]
-    if not hits:
-        raise ValueError(f"view_token {token!r} does not occur in path {path!r}")
-    if len(hits) > 1:
-        raise ValueError(f"view_token {token!r} occurs {len(hits)} times in path {path!r}; write the "
-                         "camera and frame tokens differently (#### and %04d are the same padding)")
-    width = len(token) if token.startswith("#") else int(form.group(1) or "0")
-    if token == "#":
-        width = 0
-    m = hits[0]
-    return path[:m.start()], width, path[m.end():]
-
-
-def fill_view(path: str, token: str, view: int) -> str:
-    """``path`` with the camera number ``view`` in place of ``token`` (the frame token stays).
-
-    >>> fill_view("rig/cam%02d/plate.%04d.exr", "%02d", 3)
-    'rig/cam03/plate.%04d.exr'
-    """
-    before, width, after = _split_view(path, token)
-    number = f"{int(view):0{width}d}" if width else str(int(view))
-    return f"{before}{number}{after}"
 
 
 def _pattern(params: ReadParams, sample: Sample) -> str:
@@ -186,7 +129,7 @@ def discover_views(params: ReadParams) -> list[int]:
     """Sorted camera numbers with at least one frame on disk (``view_token`` set); only numbers
     written as the token writes them count (``%02d`` takes ``03``, not ``3``)."""
     token = params.view_token or ""
-    before, width, after = _split_view(params.path, token)
+    before, width, after = split_view(params.path, token)
     rx = re.compile(_piece_regex(before) + r"(-?\d+)" + _piece_regex(after) + r"\Z")
     found: set[int] = set()
     for name in glob.iglob(_piece_glob(before) + "*" + _piece_glob(after)):

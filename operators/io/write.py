@@ -30,9 +30,8 @@ from graphcore.errors import OpError
 from graphcore.image import Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from operators.io import colorspace, exr, raster, sequence
-from operators.io.read import fill_view
-from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_pattern,
-                                  extension, resolved)
+from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_colour_rule,
+                                  check_path_tokens, check_view_token, extension, fill_view, resolved)
 
 __all__ = ["WRITE", "WriteParams", "atomic_write", "TEMP_PREFIX"]
 
@@ -85,42 +84,18 @@ class WriteParams(BaseModel):
 
     @model_validator(mode="after")
     def _one_colour_rule(self) -> "WriteParams":
-        if self.colorspace is not None and self.transfer != "auto":
-            raise ValueError(f"transfer {self.transfer!r} and colorspace {self.colorspace!r} both say how "
-                             "colour is encoded; set one of them (colorspace for a named OpenColorIO "
-                             "space, transfer for the built-in curves)")
-        if self.ocio_config is not None and self.colorspace is None:
-            raise ValueError("ocio_config is set but no colorspace is named; name the colour space to "
-                             "write in 'colorspace' or remove ocio_config")
+        check_colour_rule(self.transfer, self.colorspace, self.ocio_config, "the colour space to write")
         return self
 
     @field_validator("path")
     @classmethod
     def valid_path(cls, v: str) -> str:
-        try:
-            return check_pattern(v)
-        except ValueError as exc:
-            if "more than one frame token" in str(exc):
-                return v  # a frame and a view token: checked with view_token below
-            raise
+        return check_path_tokens(v)
 
     @model_validator(mode="after")
     def _two_numbers(self) -> "WriteParams":
-        if self.view_token is None:
-            try:
-                check_pattern(self.path)
-            except ValueError as exc:
-                raise ValueError(f"{exc}; if one of them numbers the views, name it in view_token "
-                                 "(e.g. '%02d')") from None
-            return self
-        if self.axis != "frame":
-            raise ValueError("with view_token the path's other token numbers frames: set axis to "
-                             "'frame' (the view comes from view_token)")
-        per_view = fill_view(self.path, self.view_token, 1)
-        check_pattern(per_view)
-        if not sequence.is_sequence(per_view):
-            raise ValueError(f"path {self.path!r} has no frame token besides the view_token "
-                             f"{self.view_token!r}; give both, e.g. 'out/view%02d/shot.%04d.exr'")
+        check_view_token(self.path, self.view_token, self.axis, what="the views",
+                         no_frame="give both, e.g. 'out/view%02d/shot.%04d.exr'")
         return self
 
     @field_validator("channels")
