@@ -52,6 +52,19 @@ def warp_chunks(chunks: tuple[np.ndarray, ...], mx: np.ndarray, my: np.ndarray) 
     return [warp(c, mx, my) for c in chunks]
 
 
+def resize_field(field: np.ndarray, h: int, w: int, interpolation: int = cv2.INTER_LINEAR) -> np.ndarray:
+    """An (H, W, 2) vector field resampled to ``h`` x ``w`` in one OpenCV call, both components at
+    once, lengths rescaled to the new pixel size (``resize_flow`` for a merged field). The input
+    itself when the size already matches."""
+    f = np.asarray(field, np.float32)
+    sh, sw = f.shape[:2]
+    if (sh, sw) == (h, w):
+        return f
+    out = cv2.resize(f, (w, h), interpolation=interpolation)
+    out *= np.array([w / sw, h / sh], np.float32)
+    return out
+
+
 def outside(mx: np.ndarray, my: np.ndarray, h: int, w: int) -> np.ndarray:
     """1.0 where ``(mx, my)`` falls outside an ``h`` x ``w`` image, else 0.0 (float32)."""
     out = (mx < -0.5) | (mx > w - 0.5) | (my < -0.5) | (my > h - 0.5)

@@ -26,6 +26,7 @@ import cv2
 import numpy as np
 
 from graphcore.image import Image
+from operators.vectors._grid import resize_field
 from operators.vectors.channels import BWD, FWD
 
 __all__ = ["AUTO_PIXELS", "Resolution", "work_step", "reduced_size", "shrink", "shrink_vectors", "shrink_image",
@@ -68,12 +69,7 @@ def shrink(planes: np.ndarray, step: int) -> np.ndarray:
 def shrink_vectors(vectors: np.ndarray, step: int) -> np.ndarray:
     """(H, W, 2) vectors in full-size pixels -> the reduced field, lengths in reduced pixels."""
     v = np.asarray(vectors, np.float32)
-    if step == 1:
-        return v
-    h, w = v.shape[:2]
-    small = shrink(v, step)
-    small *= np.array([small.shape[1] / w, small.shape[0] / h], np.float32)
-    return small
+    return v if step == 1 else resize_field(v, *reduced_size(v.shape[0], v.shape[1], step), cv2.INTER_AREA)
 
 
 def shrink_image(image: Image, step: int) -> Image:
@@ -103,13 +99,7 @@ def enlarge(planes: np.ndarray, h: int, w: int, nearest: bool = False) -> np.nda
 
 def enlarge_vectors(vectors: np.ndarray, h: int, w: int) -> np.ndarray:
     """Bilinear enlargement of an (h', w', 2) field to ``h`` x ``w``, lengths rescaled."""
-    v = np.asarray(vectors, np.float32)
-    sh, sw = v.shape[:2]
-    if (sh, sw) == (h, w):
-        return v
-    out = cv2.resize(v, (w, h), interpolation=cv2.INTER_LINEAR)
-    out *= np.array([w / sw, h / sh], np.float32)
-    return out
+    return resize_field(vectors, h, w)
 
 
 def _corners(n_full: int, n_small: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -26,7 +26,7 @@ import numpy as np
 
 from . import _pyramid
 from ._filters import robust_affine
-from ._grid import chunks4, pixel_grid, resize_flow
+from ._grid import chunks4, pixel_grid, resize_field, resize_flow
 from ._icm import coarse_labels, icm
 from ._likelihood import patch_cost
 from ._refine import refine
@@ -455,12 +455,8 @@ def _features(img: np.ndarray, p: Preset, support: bool = False) -> _Features:
 
 
 def _finish(u: np.ndarray, v: np.ndarray, plan: _Plan) -> np.ndarray:
-    out = cv2.merge([np.asarray(u, np.float32), np.asarray(v, np.float32)])
-    sh, sw = out.shape[:2]
-    if (sh, sw) != (plan.h, plan.w):
-        # enlarge what a coarser level solved, both components at once, lengths rescaled
-        out = cv2.resize(out, (plan.w, plan.h), interpolation=cv2.INTER_LINEAR)
-        out *= np.array([plan.w / sw, plan.h / sh], np.float32)
+    # enlarge what a coarser level solved
+    out = resize_field(cv2.merge([np.asarray(u, np.float32), np.asarray(v, np.float32)]), plan.h, plan.w)
     with np.errstate(invalid="ignore", over="ignore"):
         if np.isfinite(np.sum(out, dtype=np.float64)):
             return out

@@ -49,6 +49,7 @@ from operators.vectors import _workres as R
 from operators.vectors._workres import Resolution
 from operators.composite._channels import matte_values
 from operators.vectors._encode import perceptual
+from operators.vectors._pyramid import luma
 from operators.vectors.flow import neighbour
 from operators.vectors.channels import BWD, FWD, SMOOTHED, VECTORS
 from operators.vectors.consistency import PAPER_RELATIVE, PAPER_TOLERANCE, fb_check, mapping_conflicts
@@ -884,14 +885,6 @@ def _matte(matte: Image) -> np.ndarray:
     return np.nan_to_num(np.asarray(matte_values(matte), np.float32), nan=0.0)
 
 
-def _luma(encoded: np.ndarray) -> np.ndarray:
-    """(H, W) luma (Rec. 709 weights) of an encoded (H, W, C) guide; the mean for C != 3."""
-    e = np.asarray(encoded, np.float32)
-    if e.shape[2] == 3:
-        return cv2.transform(e, np.array([[0.2126, 0.7152, 0.0722]], np.float32)).reshape(e.shape[:2])
-    return e.mean(axis=2)
-
-
 def _enlarge(vec: np.ndarray, conf: np.ndarray, occ: np.ndarray, g_small: np.ndarray,
              g_full: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """One direction's half-resolution result back at the full size: vectors (rescaled to
@@ -990,7 +983,7 @@ def vector_smooth(params: VectorSmoothParams, inputs: Mapping[str, Any], ctx: Op
     fwd, fconf, focc = smooth_direction(here_fwd, ahead, guide, **options)
     bwd, bconf, bocc = smooth_direction(here_bwd, behind, guide, **options)
     if step > 1:
-        g_small, g_full = _luma(encoded), _luma(full_encoded)
+        g_small, g_full = luma(encoded), luma(full_encoded)
         zero = np.zeros((h, w), np.float32)
         # a direction without a neighbour keeps its vectors unchanged (conf 0, occ 0)
         fwd, fconf, focc = (_enlarge(fwd, fconf, focc, g_small, g_full) if ahead is not None
