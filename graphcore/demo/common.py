@@ -18,6 +18,7 @@ from typing import Any
 import numpy as np
 
 from graphcore.image import Image
+from graphcore.leave_one_out import psnr as srgb_psnr  # PSNR on encoded values, peak 1
 
 __all__ = ["say", "write_exr_atomic", "write_json_atomic", "render_graph", "FailedFrames", "vectors_graph",
            "read_rgb", "srgb", "srgb_psnr", "errors", "pool_errors", "flicker", "central"]
@@ -127,12 +128,6 @@ def srgb(rgb: np.ndarray) -> np.ndarray:
     from operators.io.transfer import encode
 
     return encode("srgb", np.asarray(rgb, dtype=np.float64))
-
-
-def srgb_psnr(a: np.ndarray, b: np.ndarray) -> float:
-    """PSNR in dB of two sRGB-encoded arrays, peak 1 (inf when identical)."""
-    mse = float(np.mean((np.asarray(a, np.float64) - np.asarray(b, np.float64)) ** 2))
-    return math.inf if mse == 0.0 else 10.0 * math.log10(1.0 / mse)
 
 
 def central(shape: Sequence[int], fraction: float) -> tuple[slice, slice]:

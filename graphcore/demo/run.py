@@ -55,6 +55,10 @@ import numpy as np
 
 from graphcore import __version__
 from graphcore.errors import GraphErrors, InputError, MidframeError
+from graphcore.demo.common import say as _say
+from graphcore.demo.common import srgb as _srgb
+from graphcore.demo.common import srgb_psnr
+from graphcore.demo.common import write_exr_atomic as _write_exr_atomic
 from graphcore.image import Image
 
 __all__ = ["run_demo", "DemoSettings", "DEFAULT", "MARKER", "TEMPLATE", "measure", "srgb_psnr",
@@ -140,10 +144,6 @@ class DemoSettings:
 DEFAULT = DemoSettings()
 
 
-def _say(message: str) -> None:
-    print(f"midframe: {message}", file=sys.stderr, flush=True)
-
-
 # -- the output folder ------------------------------------------------------------------------
 def claim_folder(outdir: str) -> Path:
     """Create ``outdir`` or accept it as an earlier demo's folder; refuse anything else.
@@ -192,15 +192,6 @@ def _is_demo_folder(path: Path) -> bool:
 
 
 # -- plates -----------------------------------------------------------------------------------
-def _write_exr_atomic(path: Path, image: Image, pixel_type: str, attributes: dict[str, Any]) -> None:
-    from operators.io.exr import write_exr
-    from operators.io.write import atomic_write
-
-    path.parent.mkdir(parents=True, exist_ok=True)
-    atomic_write(str(path), lambda tmp: write_exr(tmp, image, pixel_types=pixel_type, compression="zip",
-                                                  attributes=attributes))
-
-
 def _paths(root: Path) -> dict[str, str]:
     """Every file pattern the demo reads or writes, absolute."""
     return {
@@ -235,18 +226,6 @@ def write_plates(paths: dict[str, str], settings: DemoSettings) -> None:
 
 
 # -- measuring --------------------------------------------------------------------------------
-def _srgb(rgb: np.ndarray) -> np.ndarray:
-    from operators.io.transfer import encode
-
-    return encode("srgb", np.asarray(rgb, dtype=np.float64))
-
-
-def srgb_psnr(a: np.ndarray, b: np.ndarray) -> float:
-    """PSNR in dB of two sRGB-encoded arrays, peak 1 (inf when identical)."""
-    mse = float(np.mean((np.asarray(a, np.float64) - np.asarray(b, np.float64)) ** 2))
-    return math.inf if mse == 0.0 else 10.0 * math.log10(1.0 / mse)
-
-
 def measure(comp: Image, truth: Image) -> dict[str, float]:
     """Errors of a rendered composite against the true one.
 
