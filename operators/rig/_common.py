@@ -17,7 +17,7 @@ from graphcore.image import Image
 from graphcore.registry.operator import FrameRange, InputRange
 from graphcore.sample import Sample
 
-__all__ = ["rig_views", "reference_view", "view_number", "require_same_size", "with_report",
+__all__ = ["image_link_problems", "rig_views", "reference_view", "view_number", "require_same_size", "with_report",
            "source_file", "fit_sample", "FIT_FRAME_DOC"]
 
 #: The description of the ``fit_frame`` param both operators share.
@@ -98,3 +98,11 @@ def fit_sample(fit_frame: int | None, sample: Sample, ranges: Mapping[str, Input
                       field="fit_frame", fix=f"give a frame in {frames}, or leave 'fit_frame' out to "
                                              "fit every frame on its own")
     return sample.at_frame(fit_frame)
+
+
+def image_link_problems(params: Any, connected: frozenset[str]) -> list[OpError]:
+    """``check_links`` of the rig operators: the cameras must be connected to 'image'."""
+    if "image" not in connected:
+        return [OpError("input 'image' is not connected", field="image",
+                        fix="connect the rig's cameras (a read with axis 'view', or a rig node)")]
+    return []

@@ -108,7 +108,7 @@ from graphcore.errors import OpError
 from graphcore.image import COLOR, Image
 from graphcore.registry.operator import InputRange, OpContext, Operator, Port
 from graphcore.sample import Sample
-from operators.rig._common import (FIT_FRAME_DOC, fit_sample, reference_view, require_same_size,
+from operators.rig._common import (FIT_FRAME_DOC, image_link_problems, fit_sample, reference_view, require_same_size,
                                    rig_views, source_file, view_number, with_report)
 from operators.vectors._encode import perceptual
 
@@ -559,13 +559,6 @@ def _compute(params: AlignViewsParams, inputs: Mapping[str, Any], ctx: OpContext
     return Image(out, image.channels, with_report(image.meta, "align-views", report))
 
 
-def _link_problems(params: AlignViewsParams, connected: frozenset[str]) -> list[OpError]:
-    if "image" not in connected:
-        return [OpError("input 'image' is not connected", field="image",
-                        fix="connect the rig's cameras (a read with axis 'view', or a rig node)")]
-    return []
-
-
 ALIGN_VIEWS = Operator(
     name="align-views",
     version=1,
@@ -578,5 +571,5 @@ ALIGN_VIEWS = Operator(
             "metadata 'align-views.*'",
     needs=_needs,
     needs_ranges=True,
-    check_links=_link_problems,
+    check_links=image_link_problems,
 )

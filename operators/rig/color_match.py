@@ -74,7 +74,7 @@ from graphcore.image import ALPHA, COLOR, Image
 from graphcore.registry.operator import InputRange, OpContext, Operator, Port
 from graphcore.sample import Sample
 from operators.composite._channels import matte_values
-from operators.rig._common import (FIT_FRAME_DOC, fit_sample, reference_view, require_same_size,
+from operators.rig._common import (FIT_FRAME_DOC, image_link_problems, fit_sample, reference_view, require_same_size,
                                    rig_views, source_file, view_number, with_report)
 from operators.rig._robust import DegenerateFit, robust_fit
 
@@ -354,13 +354,6 @@ def _compute(params: ColorMatchParams, inputs: Mapping[str, Any], ctx: OpContext
     return Image(apply_color(image, fit), image.channels, with_report(image.meta, "color-match", report))
 
 
-def _link_problems(params: ColorMatchParams, connected: frozenset[str]) -> list[OpError]:
-    if "image" not in connected:
-        return [OpError("input 'image' is not connected", field="image",
-                        fix="connect the rig's cameras (a read with axis 'view', or a rig node)")]
-    return []
-
-
 COLOR_MATCH = Operator(
     name="color-match",
     version=1,
@@ -375,5 +368,5 @@ COLOR_MATCH = Operator(
             "channel unchanged; the fit in metadata 'color-match.*'",
     needs=_needs,
     needs_ranges=True,
-    check_links=_link_problems,
+    check_links=image_link_problems,
 )
