@@ -161,10 +161,9 @@ def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -
     frame."""
     seen: dict[str, str] = {}
     by_sink: dict[str, list] = {}
+    per_view = {sink: sink_views(ev, sink) is not None for sink in {t.node_id for t in tasks}}
     for t in tasks:
-        per_view = ev.ops[t.node_id].per_view
-        item = (t.frame, t.view) if per_view is not None and per_view(ev.graph.nodes[t.node_id].params) else t.frame
-        by_sink.setdefault(t.node_id, []).append(item)
+        by_sink.setdefault(t.node_id, []).append((t.frame, t.view) if per_view[t.node_id] else t.frame)
     for sink, frames in sorted(by_sink.items()):
         op = ev.ops[sink]
         if op.targets is None:
