@@ -44,6 +44,7 @@ the plate pixels it covers, so small faults stay visible.
 from __future__ import annotations
 
 import html
+import itertools
 import json
 import math
 import os
@@ -57,7 +58,7 @@ import cv2
 import networkx as nx
 import numpy as np
 
-__all__ = ["LEVEL_COLOURS", "MAX_PICTURE_WIDTH", "PICTURE_KINDS", "WORST_LIMIT", "error_scale",
+__all__ = ["LEVEL_COLOURS", "MAX_PICTURE_WIDTH", "PICTURE_KINDS", "WORST_LIMIT", "GraphLayout", "error_scale",
            "graph_layout", "graph_svg", "heat_map", "level_of", "page_html", "picture_size", "strip_svg",
            "worst_frames", "write_report"]
 
@@ -69,7 +70,7 @@ PICTURE_KINDS: dict[str, str] = {
     "rebuilt": "the source frame rebuilt from its neighbours one step further apart",
     "vectors": "motion vectors (colour = direction, paleness = short, strong colour = long)",
     "confidence": "vector confidence: white = trusted, black = not trusted",
-    "error": "leave-one-out error, |rebuilt - real|, on the heat scale below",
+    "error": "leave-one-out error, |rebuilt - real|, on the heat scale shown above the table",
 }
 _COLOUR_KINDS = ("thumb", "rebuilt", "vectors")
 #: Bar and label colours of the risk levels (sRGB hex); any other level is drawn grey.
@@ -427,8 +428,30 @@ class _Box:
     h: float
 
 
+@dataclass(frozen=True)
+class GraphLayout:
+    """Where :func:`graph_svg` draws things (SVG user units, y down).
+
+    ``boxes``: node id -> its box. ``column``: node id -> its column (networkx topological
+    generation of the graph with cycles condensed). ``links``: (source, target) -> the ports it
+    feeds, for every pair linked at least once. ``passes``: (source, target) -> the horizontal
+    passes (x left, x right, y) of a link through the columns it skips, each in a slot of its own.
+    ``entries``: (source, target) -> the y where the link enters the target's left side (one per
+    pair, spread down the side). ``dangling``: links (source, target, port) from unknown nodes.
+    """
+
+    boxes: dict[str, _Box]
+    column: dict[str, int]
+    links: dict[tuple[str, str], list[str]]
+    passes: dict[tuple[str, str], list[tuple[float, float, float]]]
+    entries: dict[tuple[str, str], float]
+    dangling: list[tuple[str, str, str]]
+
+
 _BOX_H, _COL_GAP, _ROW_GAP, _PAD = 46, 110, 22, 16
-_CHAR_W = 7.4  # width of one character of the 12 px label font, roughly (from memory, sans-serif)
+_PASS_H = 14        # the slot of a link passing through a column
+_ENTRY_STEP = 18    # vertical room per incoming link on a box's left side
+_CHAR_W = 7.4       # width of one character of the 12 px label font, roughly (from memory, sans-serif)
 _MAX_LABEL = 32
 
 
@@ -443,7 +466,7 @@ def _node_links(graph_doc: Mapping[str, Any]) -> tuple[dict[str, Mapping[str, An
     nodes = graph_doc["nodes"]
     if not isinstance(nodes, Mapping):
         raise TypeError("graph_doc['nodes'] must be a mapping of node id -> {'op', 'params', 'inputs'}; "
-                         "pass the resolved graph document")
+                        "pass the resolved graph document")
     links: list[tuple[str, str, str]] = []  # (source, target, port label)
     for nid, spec in nodes.items():
         inputs = spec.get("inputs", {}) if isinstance(spec, Mapping) else {}
@@ -454,14 +477,24 @@ def _node_links(graph_doc: Mapping[str, Any]) -> tuple[dict[str, Mapping[str, An
     return {str(k): (v if isinstance(v, Mapping) else {}) for k, v in nodes.items()}, links
 
 
-def graph_layout(graph_doc: Mapping[str, Any]) -> tuple[dict[str, _Box], dict[str, int], list[tuple[str, str, str]]]:
-    """Boxes of the nodes (left to right by networkx topological generations of the graph with
-    its cycles, if any, condensed), each node's column, and the links whose source is not a node."""
-    nodes, links = _node_links(graph_doc)
+def graph_layout(graph_doc: Mapping[str, Any]) -> GraphLayout:
+    """Lay the graph out in columns, left to right.
+
+    Columns are networkx's topological generations (a cycle, possible only in an invalid graph,
+    is condensed into one place). A link that skips columns gets a slot of its own in each column
+    it crosses, so no link is drawn through a box. The order within each column comes from three
+    sweeps (left to right, right to left, left to right) placing each item at the mean position
+    of its neighbours in the column before, which keeps crossings few.
+    """
+    nodes, raw = _node_links(graph_doc)
     order = {nid: i for i, nid in enumerate(nodes)}
+    merged: dict[tuple[str, str], list[str]] = {}
+    for s, t, port in raw:
+        if s in nodes:
+            merged.setdefault((s, t), []).append(port)
     g = nx.DiGraph()
     g.add_nodes_from(nodes)
-    g.add_edges_from((s, t) for s, t, _ in links if s in nodes)
+    g.add_edges_from(merged)
     cond = nx.condensation(g)
     column: dict[str, int] = {}
     for gen, members in enumerate(nx.topological_generations(cond)):
@@ -469,96 +502,139 @@ def graph_layout(graph_doc: Mapping[str, Any]) -> tuple[dict[str, _Box], dict[st
             for nid in cond.nodes[c]["members"]:
                 column[nid] = gen
     ncols = max(column.values(), default=-1) + 1
-    rows: dict[str, float] = {}
-    cols: list[list[str]] = [[] for _ in range(ncols)]
-    for c in range(ncols):
-        members = [n for n in nodes if column[n] == c]
 
-        def centre(n: str) -> tuple[float, int]:
-            ps = [rows[p] for p in g.predecessors(n) if p in rows]
-            return (sum(ps) / len(ps) if ps else float(order[n]), order[n])
+    # items of each column: node ids, and (source, target, column) passes of long links
+    Item = str | tuple[str, str, int]
+    cols: list[list[Item]] = [[n for n in nodes if column[n] == c] for c in range(ncols)]
+    chain: dict[tuple[str, str], list[Item]] = {}
+    for (s, t) in merged:
+        chain[(s, t)] = [s]
+        if column[t] > column[s]:
+            for c in range(column[s] + 1, column[t]):
+                cols[c].append((s, t, c))
+                chain[(s, t)].append((s, t, c))
+        chain[(s, t)].append(t)
+    left: dict[Item, list[Item]] = {}
+    right: dict[Item, list[Item]] = {}
+    for (s, t), items in chain.items():
+        if column[t] > column[s]:
+            for a, b in itertools.pairwise(items):
+                right.setdefault(a, []).append(b)
+                left.setdefault(b, []).append(a)
+    pos: dict[Item, float] = {}
+    for members in cols:
+        for item in members:
+            pos[item] = float(order[item]) if isinstance(item, str) else float(order[item[0]]) + 0.5
 
-        members.sort(key=centre)  # barycentre of the nodes feeding it: fewer crossings
-        for r, n in enumerate(members):
-            rows[n] = float(r)
-        cols[c] = members
+    def sweep(indices: Iterable[int], side: dict[Item, list[Item]]) -> None:
+        for c in indices:
+            def key(item: Item) -> tuple[float, float]:
+                near = [pos[n] for n in side.get(item, ())]
+                return (sum(near) / len(near) if near else pos[item], pos[item])
+
+            cols[c].sort(key=key)
+            for r, item in enumerate(cols[c]):
+                pos[item] = float(r)
+
+    sweep(range(ncols), left)
+    sweep(reversed(range(ncols)), right)
+    sweep(range(ncols), left)
+
+    incoming: dict[str, int] = {}
+    for (s, t) in merged:
+        incoming[t] = incoming.get(t, 0) + 1
     boxes: dict[str, _Box] = {}
+    slots: dict[tuple[str, str, int], tuple[float, float, float]] = {}
     x = float(_PAD)
     for members in cols:
-        width = max(max(len(_short(n)), len(_short(str(nodes[n].get("op", "?"))))) * _CHAR_W + 20
-                    for n in members)
+        real = [m for m in members if isinstance(m, str)]
+        width = max((max(len(_short(n)), len(_short(str(nodes[n].get("op", "?"))))) * _CHAR_W + 20
+                     for n in real), default=90.0)
         width = max(width, 90.0)
-        for r, n in enumerate(members):
-            boxes[n] = _Box(x, _PAD + r * (_BOX_H + _ROW_GAP), width, _BOX_H)
+        y = float(_PAD)
+        for item in members:
+            if isinstance(item, str):
+                h = max(float(_BOX_H), _ENTRY_STEP * incoming.get(item, 0) + 10.0)
+                boxes[item] = _Box(x, y, width, h)
+                y += h + _ROW_GAP
+            else:
+                slots[item] = (x, x + width, y + _PASS_H / 2)
+                y += _PASS_H + _ROW_GAP / 2
         x += width + _COL_GAP
-    dangling = [link for link in links if link[0] not in nodes]
-    return boxes, column, dangling
+    passes = {key: [slots[i] for i in items[1:-1]] for key, items in chain.items()}
+
+    entries: dict[tuple[str, str], float] = {}
+    for t, b in boxes.items():
+        feeding = [key for key in merged if key[1] == t]
+
+        def arrives(key: tuple[str, str]) -> float:  # height the link comes from
+            p = passes[key]
+            sb = boxes[key[0]]
+            return p[-1][2] if p else sb.y + sb.h / 2
+
+        feeding.sort(key=lambda k: (arrives(k), order[k[0]]))
+        for i, key in enumerate(feeding):
+            entries[key] = b.y + b.h * (i + 1) / (len(feeding) + 1)
+    dangling = [link for link in raw if link[0] not in nodes]
+    return GraphLayout(boxes, column, merged, passes, entries, dangling)
 
 
-def _on_curve(x1: float, y1: float, x2: float, y2: float, x: float) -> tuple[float, float]:
-    """The point at abscissa ``x`` of the link curve from (x1, y1) to (x2, y2) (a cubic Bezier with
-    both control points half way along x at the end heights; its x grows with the parameter)."""
+def _curve(x1: float, y1: float, x2: float, y2: float) -> str:
+    """A cubic Bezier from the current point (x1, y1) to (x2, y2), level at both ends."""
     dx = (x2 - x1) / 2
-    lo, hi = 0.0, 1.0
-    for _ in range(40):
-        t = (lo + hi) / 2
-        u = 1 - t
-        bx = u ** 3 * x1 + 3 * u * u * t * (x1 + dx) + 3 * u * t * t * (x2 - dx) + t ** 3 * x2
-        lo, hi = (t, hi) if bx < x else (lo, t)
-    t = (lo + hi) / 2
-    u = 1 - t
-    return x, u ** 3 * y1 + 3 * u * u * t * y1 + 3 * u * t * t * y2 + t ** 3 * y2
+    return f" C{x1 + dx:.1f},{y1:.1f} {x2 - dx:.1f},{y2:.1f} {x2:.1f},{y2:.1f}"
 
 
 def graph_svg(graph_doc: Mapping[str, Any], highlight: Mapping[str, str] | None = None) -> str:
-    """Inline SVG of the graph: a labelled box per node (id, then op), a curve per link from the
-    feeding node to the port it feeds, the port named on the curve; ``highlight`` (node id ->
-    role) draws those nodes with a thick outline and names the role in their tooltip."""
-    nodes, links = _node_links(graph_doc)
-    boxes, _, _ = graph_layout(graph_doc)
+    """Inline SVG of the graph (:func:`graph_layout`): a box per node (id, then op), a line per
+    linked pair from the feeding node to the port it feeds, the port named where the line enters
+    its box; ``highlight`` (node id -> role) draws those nodes with a thick outline and a tinted
+    fill and names the role in their tooltip."""
+    nodes, _ = _node_links(graph_doc)
+    lay = graph_layout(graph_doc)
+    boxes = lay.boxes
     highlight = dict(highlight or {})
     if not boxes:
         return "<p>The graph has no nodes.</p>"
     width = max(b.x + b.w for b in boxes.values()) + _PAD
-    height = max(b.y + b.h for b in boxes.values()) + _PAD
+    height = max([b.y + b.h for b in boxes.values()] + [y + _PASS_H for p in lay.passes.values()
+                                                        for _, _, y in p]) + _PAD + _ROW_GAP
     parts = [(f'<svg class="graph" role="img" width="{width:.0f}" height="{height:.0f}" '
               f'viewBox="0 0 {width:.0f} {height:.0f}" font-family="sans-serif" font-size="12">'),
              "<title>the graph: data flows left to right</title>",
              ('<defs><marker id="mf-arrow" viewBox="0 0 10 10" refX="10" refY="5" markerWidth="7" '
               'markerHeight="7" orient="auto"><path d="M0,0 L10,5 L0,10 z" fill="#333"/></marker></defs>')]
-    merged: dict[tuple[str, str], list[str]] = {}
-    for s, t, port in links:
-        if s in boxes:
-            merged.setdefault((s, t), []).append(port)
     labels = []
-    for (s, t), ports in merged.items():
+    for (s, t), ports in lay.links.items():
         a, b = boxes[s], boxes[t]
-        x1, y1, x2, y2 = a.x + a.w, a.y + a.h / 2, b.x, b.y + b.h / 2
-        if x2 <= x1:  # a link within a column or backwards (only in a cycle): loop around below
+        x1, y1, x2, y2 = a.x + a.w, a.y + a.h / 2, b.x, lay.entries[(s, t)]
+        if lay.column[t] <= lay.column[s]:  # within a cycle (an invalid graph): loop around below
             lo = max(a.y + a.h, b.y + b.h) + _ROW_GAP / 2
             d = f"M{x1:.1f},{y1:.1f} C{x1 + 40:.1f},{lo:.1f} {x2 - 40:.1f},{lo:.1f} {x2:.1f},{y2:.1f}"
-            mx, my = (x1 + x2) / 2, lo - 2
         else:
-            dx = (x2 - x1) / 2
-            d = f"M{x1:.1f},{y1:.1f} C{x1 + dx:.1f},{y1:.1f} {x2 - dx:.1f},{y2:.1f} {x2:.1f},{y2:.1f}"
-            # the label sits in the gap just before the target, where no box is
-            mx, my = _on_curve(x1, y1, x2, y2, max(x2 - _COL_GAP / 2, (x1 + x2) / 2))
+            d = f"M{x1:.1f},{y1:.1f}"
+            x, y = x1, y1
+            for px0, px1, py in lay.passes[(s, t)]:
+                d += _curve(x, y, px0, py) + f" L{px1:.1f},{py:.1f}"
+                x, y = px1, py
+            d += _curve(x, y, x2, y2)
         text = ", ".join(ports)
         parts.append(f'<path class="link" d="{d}" fill="none" stroke="#333" stroke-width="1.4" '
-                     f'marker-end="url(#mf-arrow)"><title>{_e(s)} \u2192 {_e(t)}.{_e(text)}</title></path>')
-        labels.append(f'<text class="port" x="{mx:.1f}" y="{my - 3:.1f}" text-anchor="middle" fill="#111" '
+                     f'marker-end="url(#mf-arrow)"><title>{_e(s)} \u2192 {_e(t)}: {_e(text)}</title></path>')
+        labels.append(f'<text class="port" x="{x2 - 9:.1f}" y="{y2 - 4:.1f}" text-anchor="end" fill="#111" '
                       f'stroke="#fff" stroke-width="4" paint-order="stroke">{_e(text)}</text>')
     for nid, b in boxes.items():
         op = str(nodes[nid].get("op", "?"))
         role = highlight.get(nid)
         stroke = ' stroke="#111" stroke-width="3.5"' if role else ' stroke="#444" stroke-width="1.2"'
         tip = f"{nid} ({op})" + (f": {role}" if role else "")
+        top = b.y + b.h / 2 - 4
         parts.append(f'<g class="node" data-node="{_e(nid)}"><title>{_e(tip)}</title>'
                      f'<rect x="{b.x:.1f}" y="{b.y:.1f}" width="{b.w:.1f}" height="{b.h:.1f}" rx="5" '
                      f'fill="{"#fff4d6" if role else "#ffffff"}"{stroke}/>'
-                     f'<text x="{b.x + 10:.1f}" y="{b.y + 19:.1f}" font-weight="bold" fill="#111">{_e(_short(nid))}</text>'
-                     f'<text x="{b.x + 10:.1f}" y="{b.y + 36:.1f}" fill="#333">{_e(_short(op))}</text></g>')
-    parts.extend(labels)  # drawn last, over the boxes and curves
+                     f'<text x="{b.x + 10:.1f}" y="{top:.1f}" font-weight="bold" fill="#111">{_e(_short(nid))}</text>'
+                     f'<text x="{b.x + 10:.1f}" y="{top + 16:.1f}" fill="#333">{_e(_short(op))}</text></g>')
+    parts.extend(labels)  # drawn last, over the boxes and lines
     parts.append("</svg>")
     return "".join(parts)
 
@@ -601,6 +677,14 @@ def _columns(rows: Sequence[Mapping[str, Any]], known: Mapping[str, tuple[str, s
                     _is_number(rr.get(k)) for rr in rows):
                 extra.append(k)
     return present + extra
+
+
+def _frame_columns(frames: Sequence[_Frame]) -> list[str]:
+    """Columns of a frame table; 'level' also when only the thresholds gave the levels."""
+    cols = _columns([f.fields for f in frames], _FRAME_FIELDS)
+    if "level" not in cols and any(f.level for f in frames):
+        cols.insert(cols.index("risk") + 1, "level")
+    return cols
 
 
 def _head(cols: Sequence[str], known: Mapping[str, tuple[str, str]], lead: Sequence[str] = ()) -> str:
@@ -714,14 +798,15 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
 
     p.append('<h2 id="strip">Risk of every output frame</h2>')
     p.append('<div class="scroll">' + strip_svg(assessment) + "</div>")
-    levels = sorted({f.level for f in frames if f.level}, key=lambda x: (x not in LEVEL_COLOURS, x))
+    rank = {name: i for i, name in enumerate(LEVEL_COLOURS)}
+    levels = sorted({f.level for f in frames if f.level}, key=lambda x: (rank.get(x, len(rank)), x))
     legend = "".join(f'<span><i class="chip" style="background:{_colour(lv)}"></i>{_e(lv)}</span>' for lv in levels)
     p.append(f'<p class="legend note">{legend} One bar per frame, in frame order; the height is the '
              "predicted risk; dashed lines are the thresholds. Each bar links to its row below.</p>")
 
     # worst frames
     worst, unknown = worst_frames(assessment, files.keys())
-    cols = _columns([by_frame[f].fields for f in worst], _FRAME_FIELDS)
+    cols = _frame_columns([by_frame[f] for f in worst])
     p.append('<h2 id="worst">Worst frames</h2>')
     if worst:
         p.append(f"<p class=note>In order of decreasing risk. {'The heat scale of the error maps:' if scale else ''}</p>")
@@ -745,7 +830,7 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
 
     # every frame
     p.append('<h2 id="frames">Every frame</h2>')
-    cols = _columns([f.fields for f in frames], _FRAME_FIELDS)
+    cols = _frame_columns(frames)
     body = "".join(f'<tr id="frame-{f.frame}" class="frame" data-frame="{f.frame}">'
                    f"{_cells(f.fields, cols, _FRAME_FIELDS, f.level)}</tr>" for f in frames)
     p.append(f'<div class="scroll"><table class="frames">{_head(cols, _FRAME_FIELDS)}{body}</table></div>')
@@ -793,7 +878,7 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
     if roles:
         note += " Thick outline: " + "; ".join(f"{nid} ({r})" for nid, r in roles.items()) + "."
     p.append(f"<p class=note>{_e(note)}</p>")
-    _, _, dangling = graph_layout(graph_doc)
+    dangling = graph_layout(graph_doc).dangling
     if dangling:
         p.append("<p class=note>Links from nodes that are not in the graph: " + _e(
             "; ".join(f"{t}.{port} \u2190 {s}" for s, t, port in dangling)) + ".</p>")

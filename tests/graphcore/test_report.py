@@ -8,6 +8,7 @@ except the PNG files, decoded back with OpenCV.
 
 from __future__ import annotations
 
+import itertools
 import json
 import math
 import os
@@ -175,6 +176,8 @@ def test_strip_levels_from_thresholds_and_missing_risk(tmp_path):
     assert bars[1]["fill"] == report.LEVEL_COLOURS["high"]
     assert bars[4]["fill"] == report.LEVEL_COLOURS["watch"]          # at the threshold counts
     assert bars[3]["fill"] == report.LEVEL_COLOURS["low"]
+    frame_header = "|".join(page.header[-2])                        # the every-frame table
+    assert frame_header.startswith("frame|risk|level")
     assert report.level_of(0.7, None, {}) is None                    # nothing to go by
     assert report.level_of(0.7, "custom", THRESHOLD) == "custom"      # assess's word wins
 
@@ -337,25 +340,41 @@ def test_text_from_files_is_escaped(tmp_path):
 
 
 # -- the graph drawing -----------------------------------------------------------------------------
-def test_graph_is_drawn_in_topological_columns(tmp_path):
-    doc = _graph_doc()
-    boxes, column, dangling = report.graph_layout(doc)
+def _overlap(a, b) -> bool:
+    return not (a.x + a.w <= b.x or b.x + b.w <= a.x or a.y + a.h <= b.y or b.y + b.h <= a.y)
+
+
+@pytest.mark.parametrize("name", ["retime.json", "fg-retime-over.json", "stereo-shot.json"])
+def test_graph_is_drawn_in_topological_columns_and_no_link_crosses_a_box(name):
+    doc = json.loads((REPO / "graphs" / name).read_text())
+    lay = report.graph_layout(doc)
     nodes = doc["nodes"]
-    assert set(boxes) == set(nodes) and not dangling
-    for nid, spec in nodes.items():
-        for src in spec.get("inputs", {}).values():
-            assert column[src] < column[nid]                                   # links run left to right
-            assert boxes[src].x + boxes[src].w < boxes[nid].x
-    for a in boxes:                                                            # no two boxes overlap
-        for b in boxes:
+    assert set(lay.boxes) == set(nodes) and not lay.dangling
+    pairs = {(src, nid) for nid, spec in nodes.items() for src in spec.get("inputs", {}).values()}
+    assert set(lay.links) == pairs
+    for src, nid in pairs:
+        assert lay.column[src] < lay.column[nid]                              # links run left to right
+        a, b = lay.boxes[src], lay.boxes[nid]
+        assert a.x + a.w < b.x
+        assert b.y < lay.entries[(src, nid)] < b.y + b.h                     # enters its target's side
+        # a link skipping columns passes through each of them in a slot no box covers
+        passes = lay.passes[(src, nid)]
+        assert len(passes) == lay.column[nid] - lay.column[src] - 1
+        for x0, x1, y in passes:
+            for box in lay.boxes.values():
+                if box.x < x1 and x0 < box.x + box.w:
+                    assert not box.y - 2 <= y <= box.y + box.h + 2, (src, nid, y, box)
+    for a in lay.boxes:                                                       # no two boxes overlap
+        for b in lay.boxes:
             if a < b:
-                A, B = boxes[a], boxes[b]
-                assert A.x + A.w <= B.x or B.x + B.w <= A.x or A.y + A.h <= B.y or B.y + B.h <= A.y
+                assert not _overlap(lay.boxes[a], lay.boxes[b]), (a, b)
+    for t in nodes:                                                           # entries spread out
+        ys = sorted(y for (s, tt), y in lay.entries.items() if tt == t)
+        assert all(y1 - y0 >= 14 for y0, y1 in itertools.pairwise(ys)), t
     svg = report.graph_svg(doc, {"timing": "time"})
     page = _Page()
     page.feed(svg)
-    links = sum(len(spec.get("inputs", {})) for spec in nodes.values())
-    assert page.tags.count("path") - 1 == links                                # + the arrow head
+    assert page.tags.count("path") - 1 == len(pairs)                         # + the arrow head
     assert sorted(a for n, a in page.attrs if n == "data-node") == sorted(nodes)
     text = "".join(page.text)
     for spec in nodes.values():
@@ -369,12 +388,13 @@ def test_graph_with_list_links_cycles_and_dangling_links():
                      "r": {"op": "rig", "inputs": {"image": ["a", "b", "a"]}},
                      "x": {"op": "blend", "inputs": {"a": "y", "b": "r"}},
                      "y": {"op": "blend", "inputs": {"a": "x", "c": "ghost"}}}}
-    _, column, dangling = report.graph_layout(doc)
-    assert column["a"] == column["b"] == 0 and column["r"] == 1
-    assert column["x"] == column["y"] == 2                                     # a cycle shares a column
-    assert dangling == [("ghost", "y", "c")]
+    lay = report.graph_layout(doc)
+    assert lay.column["a"] == lay.column["b"] == 0 and lay.column["r"] == 1
+    assert lay.column["x"] == lay.column["y"] == 2                            # a cycle shares a column
+    assert lay.dangling == [("ghost", "y", "c")]
+    assert lay.links[("a", "r")] == ["image[0]", "image[2]"]
     svg = report.graph_svg(doc)
-    assert "image[0], image[2]" in svg and "image[1]" in svg                   # one curve a -> r
+    assert "image[0], image[2]" in svg and "image[1]" in svg                   # one line a -> r
 
 
 # -- bad input ---------------------------------------------------------------------------------------
