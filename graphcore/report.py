@@ -720,9 +720,9 @@ def _figures(frame: int, files: Mapping[int, Mapping[str, str]], scale: float | 
     return f'<div class="figs">{"".join(figs)}</div>' if figs else ""
 
 
-def _kv_table(rows: Iterable[tuple[str, Any]]) -> str:
+def _kv_table(rows: Iterable[tuple[str, Any]], cls: str = "facts") -> str:
     body = "".join(f"<tr><th class=l>{_e(k)}</th><td class=l>{_e(_fmt(v))}</td></tr>" for k, v in rows)
-    return f"<table>{body}</table>" if body else ""
+    return f'<table class="{cls}">{body}</table>' if body else ""
 
 
 def _params_html(params: Any) -> str:
@@ -775,11 +775,10 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
         facts.append((f"threshold: {name}", v))
     if assessment.get("schema") is not None:
         facts.append(("document", f"{assessment['schema']} version {assessment.get('version', '?')}"))
-    p.append(_kv_table(facts))
     vars_ = graph.get("vars")
-    if isinstance(vars_, Mapping) and vars_:
-        p.append("<h2 id=\"vars\">Variables</h2>")
-        p.append(_kv_table((str(k), v) for k, v in vars_.items()))
+    if isinstance(vars_, Mapping):
+        facts[2:2] = [(f"variable {k}", v) for k, v in vars_.items()]
+    p.append(_kv_table(facts))
 
     p.append('<h2 id="how">How to read this</h2>')
     p.append(f"<p>{_e(_HOW_TO_READ)}</p>")
@@ -794,7 +793,7 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
                 rows.append(f"<tr><th class=l>worst</th><td class=l>{links or '-'}</td></tr>")
             else:
                 rows.append(f"<tr><th class=l>{_e(k.replace('_', ' '))}</th><td class=l>{_e(_fmt(v))}</td></tr>")
-        p.append(f"<table>{''.join(rows)}</table>")
+        p.append(f'<table class="summary">{"".join(rows)}</table>')
 
     p.append('<h2 id="strip">Risk of every output frame</h2>')
     p.append('<div class="scroll">' + strip_svg(assessment) + "</div>")

@@ -319,6 +319,19 @@ def test_page_is_static_and_self_contained(tmp_path):
     assert "How to read this" in text and "Higher is worse" in text
 
 
+def test_the_top_names_the_graph_file_hash_and_variables(tmp_path):
+    a = _assessment()
+    text, _ = _parse(write_report(tmp_path, a, {}, _graph_doc()))
+    assert "<title>midframe assess: graphs/retime.json</title>" in text
+    facts = re.search(r'<table class="facts">(.*?)</table>', text, re.DOTALL).group(1)
+    rows = dict(re.findall(r"<tr><th class=l>(.*?)</th><td class=l>(.*?)</td></tr>", facts))
+    assert rows["graph file"] == "graphs/retime.json" and rows["graph hash"] == a["graph"]["hash"]
+    for k, v in a["graph"]["vars"].items():
+        assert rows[f"variable {k}"] == v
+    assert rows["time node"] == "timing" and rows["threshold: high"] == "1"
+    assert text.index('class="facts"') < text.index('class="strip"') < text.index('id="worst"')
+
+
 def test_text_from_files_is_escaped(tmp_path):
     evil = "<script>alert(1)</script>"
     img = '"><img src=x onerror=alert(2)>'
