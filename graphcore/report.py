@@ -74,7 +74,7 @@ PICTURE_KINDS: dict[str, str] = {
 }
 _COLOUR_KINDS = ("thumb", "rebuilt", "vectors")
 #: Bar and label colours of the risk levels (sRGB hex); any other level is drawn grey.
-LEVEL_COLOURS: dict[str, str] = {"high": "#c0141e", "watch": "#e8a100", "low": "#2f6a9e"}
+LEVEL_COLOURS: dict[str, str] = {"high": "#c0141e", "watch": "#e8a100", "ok": "#2f6a9e", "low": "#2f6a9e"}
 _OTHER_COLOUR = "#6e6e6e"
 #: Without a list of worst frames in the summary, the page shows this many of the riskiest.
 WORST_LIMIT = 10
@@ -767,6 +767,9 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
     for key, label in (("file", "graph file"), ("hash", "graph hash")):
         if graph.get(key) is not None:
             facts.append((label, graph[key]))
+    vars_ = graph.get("vars")
+    if isinstance(vars_, Mapping):
+        facts.extend((f"variable {k}", v) for k, v in vars_.items())
     for key, label in (("time_node", "time node"), ("inbetween_node", "in-between node"),
                        ("vectors_node", "vectors node")):
         if assessment.get(key) is not None:
@@ -775,9 +778,6 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
         facts.append((f"threshold: {name}", v))
     if assessment.get("schema") is not None:
         facts.append(("document", f"{assessment['schema']} version {assessment.get('version', '?')}"))
-    vars_ = graph.get("vars")
-    if isinstance(vars_, Mapping):
-        facts[2:2] = [(f"variable {k}", v) for k, v in vars_.items()]
     p.append(_kv_table(facts))
 
     p.append('<h2 id="how">How to read this</h2>')
@@ -789,10 +789,11 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
         rows = []
         for k, v in summary.items():
             if k == "worst" and isinstance(v, Sequence) and not isinstance(v, str):
-                links = ", ".join(f'<a href="#frame-{_e(f)}">{_e(_fmt(f))}</a>' for f in v)
+                links = ", ".join(f'<a href="#frame-{int(f)}">{int(f)}</a>' if _is_number(f) and f in by_frame
+                                  else _e(_fmt(f)) for f in v)
                 rows.append(f"<tr><th class=l>worst</th><td class=l>{links or '-'}</td></tr>")
             else:
-                rows.append(f"<tr><th class=l>{_e(k.replace('_', ' '))}</th><td class=l>{_e(_fmt(v))}</td></tr>")
+                rows.append(f"<tr><th class=l>{_e(str(k).replace('_', ' '))}</th><td class=l>{_e(_fmt(v))}</td></tr>")
         p.append(f'<table class="summary">{"".join(rows)}</table>')
 
     p.append('<h2 id="strip">Risk of every output frame</h2>')
@@ -822,7 +823,9 @@ def page_html(assessment: Mapping[str, Any], graph_doc: Mapping[str, Any],
         p.append(f'<div class="scroll"><table class="worst">{_head(cols, _FRAME_FIELDS, ["rank"])}'
                  f"{''.join(body)}</table></div>")
     else:
-        p.append("<p>No frame has a risk value.</p>")
+        named = summary.get("worst") if isinstance(summary, Mapping) else None
+        p.append("<p>The assessment names no worst frames.</p>" if isinstance(named, list)
+                 else "<p>No frame has a risk value.</p>")
     if unknown:
         p.append(f"<p class=note>The summary also names frames that are not in the frame list: "
                  f"{_e(', '.join(map(str, unknown)))}.</p>")
@@ -924,6 +927,7 @@ def write_report(folder: Path, assessment: dict, pictures: Mapping[int, Mapping[
         any file is written.
     """
     folder = Path(folder)
+    pictures = pictures or {}
     _frames(assessment)  # check the document before writing anything
     graph_layout(graph_doc)
     prepared: dict[int, dict[str, np.ndarray]] = {}

@@ -191,7 +191,8 @@ def test_worst_frames_are_listed_by_decreasing_risk(tmp_path):
     named = [riskiest[4], riskiest[0], riskiest[2], 999]               # scrambled, one unknown
     a["summary"] = {"in_betweens": len(risks), "high": 3, "watch": 5, "worst": named}
     pic_frame = riskiest[-1]                                           # the safest frame has pictures
-    _, page = _parse(write_report(tmp_path, a, _pictures([pic_frame], (60, 80)), _graph_doc()))
+    text, page = _parse(write_report(tmp_path, a, _pictures([pic_frame], (60, 80)), _graph_doc()))
+    _assert_static(text, page, tmp_path)                               # 999 is not linked
     expected = sorted([riskiest[4], riskiest[0], riskiest[2], pic_frame], key=frames.get, reverse=True)
     assert page.worst == expected
     assert "not in the frame list: 999" in "".join(page.text)
