@@ -11,11 +11,12 @@ browser:
 - ``pictures/frame<N>-<kind>.png``: the pictures, written with OpenCV, at most
   :data:`MAX_PICTURE_WIDTH` pixels wide.
 
-The page holds, top to bottom: the graph file, its hash and variables; the summary; a strip with
-one bar per listed output frame (height = risk, colour = level, thresholds as dashed lines); the
-worst frames with their pictures; every frame; the leave-one-out table of the source frames; the
-graph drawn as a layered diagram (our own layout: networkx topological generations give the
-columns) and every node's params; and a short text on how to read it all.
+The page holds, top to bottom: the graph file, its hash and variables (with the nodes assess
+looked at and the thresholds); a short text on how to read it all; the summary; a strip with one
+bar per listed output frame (height = risk, colour = level, thresholds as dashed lines); the worst
+frames with their pictures; every frame; the leave-one-out table of the source frames; pictures of
+any other frame; the graph drawn as a layered diagram (our own layout: networkx topological
+generations give the columns) and every node's params.
 
 Every file is written to a temporary name in the folder first and moved into place with
 ``os.replace``, pictures before the page, so the page never names a picture that is not there and
@@ -27,9 +28,9 @@ Pictures (``pictures[frame][kind]``, any of):
 kind            array                                  shown as
 ==============  =====================================  ===============================================
 ``thumb``       H x W x 3 uint8 RGB (or float 0..1)    the picture, area-averaged when shrunk
-``rebuilt``     H x W x 3 uint8 RGB (or float 0..1)    the picture, area-averaged when shrunk
 ``vectors``     H x W x 3 uint8 RGB, colour-coded      the picture, area-averaged when shrunk
 ``confidence``  H x W uint8, or float 0..1             grey levels: 0 black, 1 (255) white
+``rebuilt``     H x W x 3 uint8 RGB (or float 0..1)    the picture, area-averaged when shrunk
 ``error``       H x W float, absolute error            heat map on one scale shared by every frame
 ==============  =====================================  ===============================================
 
@@ -67,9 +68,9 @@ MAX_PICTURE_WIDTH = 480
 #: Picture kinds in the order they are shown, with their captions.
 PICTURE_KINDS: dict[str, str] = {
     "thumb": "the frame (the in-between, or its nearest source frame)",
-    "rebuilt": "the source frame rebuilt from its neighbours one step further apart",
     "vectors": "motion vectors (colour = direction, paleness = short, strong colour = long)",
     "confidence": "vector confidence: white = trusted, black = not trusted",
+    "rebuilt": "the source frame rebuilt from its neighbours one step further apart",
     "error": "leave-one-out error, |rebuilt - real|, on the heat scale shown above the table",
 }
 _COLOUR_KINDS = ("thumb", "rebuilt", "vectors")
