@@ -92,8 +92,10 @@ _FRAME_FIELDS: dict[str, tuple[str, str]] = {
     "level": ("level", ""),
     "loo_psnr": ("leave-one-out PSNR (dB)", ".2f"),
     "confidence": ("confidence", ".3f"),
-    "occluded": ("occluded", ".3f"),
-    "motion": ("motion", ".2f"),
+    "disagree": ("sides disagree (RMS)", ".4f"),
+    "unsure": ("unsure vectors (share)", ".3f"),
+    "occluded": ("occluded (share)", ".3f"),
+    "motion": ("motion, 95th pct (px)", ".2f"),
 }
 _SOURCE_FIELDS: dict[str, tuple[str, str]] = {
     "frame": ("source frame", "d"),

@@ -109,6 +109,25 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("check", help="validate a graph without rendering")
     _add_graph_args(p)
 
+    p = sub.add_parser("assess", help="predict which in-betweens of a retime will break, from the shot itself",
+                       description="Rebuild real source frames from neighbours one step further apart "
+                       "(leave-one-out), compare, and combine that with the two warped sides of every "
+                       "in-between and its vector confidence into a risk per in-between output frame "
+                       "(higher is worse). Prints a table; --json and --report keep it.")
+    _add_graph_args(p)
+    p.add_argument("--frames", type=_frames_arg, metavar="A-B", help="output frames to assess (default: all "
+                   "the render would write)")
+    p.add_argument("--node", metavar="ID", help="the retime node to assess (only needed when there are several)")
+    p.add_argument("--json", dest="json_out", metavar="OUT.json", help="write the assessment as JSON")
+    p.add_argument("--report", metavar="DIR", help="write a static HTML report (index.html and pictures) into "
+                   "DIR (new, or a report folder written before)")
+    p.add_argument("--worst", type=_positive_int, default=6, metavar="N", help="pictures for the N riskiest "
+                   "frames in the report (default 6)")
+    p.add_argument("--cache", metavar="DIR", help="disk cache folder: give the render's own, and the vectors "
+                   "computed here are not computed again by the render")
+    p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB", help="in-memory cache size "
+                   "(default 2048 MB)")
+
     p = sub.add_parser("cache", help="inspect or prune a disk cache folder")
     p.add_argument("action", choices=("stats", "prune"), help="stats: entries and size; prune: remove the "
                    "least recently used entries down to --max-size, and stale temporary files")
@@ -219,6 +238,76 @@ def _group_sources(paths: list[str]) -> list[str]:
         runs.setdefault((m.group(1), len(m.group(2)), m.group(3)), []).append(int(m.group(2)))
     out = [f"{head}{'#' * width}{tail}  frames {compact_frames(nums)}" for (head, width, tail), nums in sorted(runs.items())]
     return out + lone
+
+
+def _report_folder(path: str) -> None:
+    """Refuse a report folder that holds anything but an earlier report (nothing of the user's is lost)."""
+    import os
+
+    if os.path.exists(path) and not os.path.isdir(path):
+        raise UsageError("not a folder", file=path, field="--report", fix="name a new folder or an earlier report's")
+    if os.path.isdir(path):
+        foreign = sorted(set(os.listdir(path)) - {"index.html", "pictures", "assess.json"})
+        if foreign:
+            raise UsageError(f"the folder holds other files ({', '.join(foreign[:3])}"
+                             f"{' ...' if len(foreign) > 3 else ''}), so it is not a report folder", file=path,
+                             field="--report", fix="name a new folder, or an earlier report's folder")
+
+
+def cmd_assess(args: argparse.Namespace) -> int:
+    import math
+    import os
+    import tempfile
+
+    from graphcore.assess import assess
+
+    if args.report:
+        _report_folder(args.report)
+    if not args.verbose:
+        # the rebuilds' own in-between notes name samples the render never makes; -v shows them
+        logging.getLogger("midframe.render").setLevel(logging.ERROR)
+    reg = _registry(args.plugins)
+    found = assess(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, node=args.node,
+                   cache_dir=args.cache, memory_bytes=args.memory << 20, registry=reg, worst=args.worst,
+                   on_step=lambda text: log.info("assess: %s", text) if args.verbose else None)
+    doc = found.doc
+    if args.json_out:
+        folder = os.path.dirname(os.path.abspath(args.json_out))
+        try:
+            fd, tmp = tempfile.mkstemp(prefix=".assess-", suffix=".tmp", dir=folder)
+            with os.fdopen(fd, "w") as fh:
+                json.dump(doc, fh, indent=1, allow_nan=False)
+                fh.write("\n")
+            os.replace(tmp, args.json_out)
+        except OSError as exc:
+            raise UsageError(f"cannot write the assessment: {exc.strerror}", file=args.json_out, field="--json",
+                             fix="name a file in a writable folder") from None
+    if args.report:
+        from graphcore.report import write_report
+
+        try:
+            index = write_report(args.report, doc, found.pictures, dict(found.graph.source) if found.graph else {})
+        except OSError as exc:
+            raise UsageError(f"cannot write the report: {exc.strerror}", file=args.report, field="--report",
+                             fix="name a folder where files can be written") from None
+        log.info("report: %s", index)
+
+    def num(value, fmt: str) -> str:
+        return "-" if value is None or (isinstance(value, float) and math.isnan(value)) else format(value, fmt)
+
+    frames = doc["frames"]
+    print(f"{'frame':>7} {'source time':>12} {'risk':>7} {'level':<7} {'LOO dB':>7} {'disagree':>9} "
+          f"{'unsure':>7} {'motion':>7}")
+    for e in frames:
+        print(f"{e['frame']:>7} {e['source_time']:>12} {num(e['risk'], '.2f'):>7} {e['level']:<7} "
+              f"{num(e['loo_psnr'], '.2f'):>7} {num(e['disagree'], '.4f'):>9} {num(e['unsure'], '.3f'):>7} "
+              f"{num(e['motion'], '.2f'):>7}")
+    summary = doc["summary"]
+    worst = ", ".join(str(k) for k in summary["worst"]) or "none"
+    print(f"midframe: {summary['in_betweens']} in-between(s): {summary['high']} high, {summary['watch']} watch "
+          f"(risk >= {doc['threshold']['high']:g} / {doc['threshold']['watch']:g}); riskiest first: {worst}",
+          file=sys.stderr)
+    return EXIT_OK
 
 
 def cmd_explain(args: argparse.Namespace) -> int:
@@ -494,7 +583,7 @@ def cmd_vectors(args: argparse.Namespace) -> int:
 
 
 COMMANDS = {"run": cmd_run, "vectors": cmd_vectors, "check": cmd_check, "chunks": cmd_chunks, "cache": cmd_cache,
-            "explain": cmd_explain,
+            "explain": cmd_explain, "assess": cmd_assess,
             "ops": cmd_ops,
             "schema": cmd_schema, "graph": cmd_graph, "demo": cmd_demo}
 
@@ -503,7 +592,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     level = logging.WARNING - 10 * min(args.verbose, 2)
-    if args.command in ("run", "demo"):
+    if args.command in ("run", "demo", "assess"):
         level = min(level, logging.INFO)
     global _JSON
     _JSON = args.log_format == "json"
