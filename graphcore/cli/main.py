@@ -458,6 +458,8 @@ def cmd_run(args: argparse.Namespace) -> int:
                      on_start=_progress(args), resume=args.resume, scheduler=args.scheduler)
     report = outcome.report
     failed = report.failed
+    # in-betweens a blend made whole from the real frames (frame_fallback): listed at the end
+    held = sorted({r.frame for r in report.results for w in r.warnings if "whole frame at" in w})
     if args.cache_limit is not None and args.cache:
         from graphcore.cache import DiskCache
 
@@ -470,7 +472,7 @@ def cmd_run(args: argparse.Namespace) -> int:
         from graphcore.cli.jsonlog import emit
 
         emit("summary", "error" if failed else "info", frames=len(outcome.frames), files=len(report.results),
-             skipped=len(report.skipped),
+             skipped=len(report.skipped), fallback_frames=held,
              failed=[{"frame": r.frame, "view": r.view, "node": r.node_id, "status": r.status,
                       "message": r.message} for r in failed],
              exit=report.exit_code)
@@ -490,6 +492,9 @@ def cmd_run(args: argparse.Namespace) -> int:
         print(f"midframe: {len(failed)} of {len(report.results)} frames failed: {where(failed)}",
               file=sys.stderr)
         return report.exit_code
+    if held:
+        print(f"midframe: {len(held)} output frame(s) fell back whole to the real frames (vectors not trusted "
+              f"there; see the warnings): {compact_frames(held)}", file=sys.stderr)
     done = len(report.results)
     frames = len(outcome.frames)
     sequences = len({(r.node_id, r.view) for r in report.results})   # one per sink, per view of a per-view sink

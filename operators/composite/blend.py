@@ -92,6 +92,21 @@ class BlendParams(BaseModel):
         description=("Mode 'inbetween': what poorly seen pixels show: 'dissolve' = (1-t)*a + t*b, "
                      "'nearest' = a for t <= 1/2, else b."),
     )
+    frame_fallback: float | None = Field(
+        None, gt=0.0, le=1.0,
+        description=("Mode 'inbetween': when more than this share of an in-between's pixels fall "
+                     "back (both sides' visibility below 'threshold'), the whole frame is made from "
+                     "the two real neighbouring frames instead, with no vectors: 'dissolve' = "
+                     "(1-t)*previous + t*next, 'nearest' = a hold of the nearer real frame; the "
+                     "render log names every such frame. None (default): never, only regions fall "
+                     "back. 0.25 is a cautious start for a shot whose vectors break."),
+    )
+    mismatch: float = Field(
+        0.1, gt=0.0,
+        description=("Mode 'inbetween' with frame_fallback: a pixel also counts as failing where the "
+                     "two warped sides differ by more than this (mean |a - b| over R, G, B, linear "
+                     "light): the vectors brought two different pictures there, as across a cut."),
+    )
 
     @model_validator(mode="after")
     def _check(self) -> "BlendParams":
@@ -120,7 +135,14 @@ def blend_needs(params: BlendParams, sample: Sample) -> Mapping[str, Sample | Se
     """
     if params.mode == "inbetween":
         pos = sample.frame if params.axis == "frame" else sample.view
-        return {"a": sample} if pos.denominator == 1 else {"a": sample, "b": sample}
+        if pos.denominator == 1:
+            return {"a": sample}
+        if params.frame_fallback is None:
+            return {"a": sample, "b": sample}
+        # a warp at a real sample passes its image through: a at n and b at n + 1 are the real frames
+        lo = math.floor(pos)
+        at = sample.at_frame if params.axis == "frame" else sample.at_view
+        return {"a": (sample, at(lo)), "b": (sample, at(lo + 1))}
     if params.mode != "time-dissolve":
         return None
     frame = sample.frame
@@ -171,10 +193,23 @@ def _time_dissolve(a: Image | tuple[Image, ...] | None, ctx: OpContext) -> Image
     return _weighted([("a", lo), ("a", hi)], [1.0 - t, t], normalize=False)
 
 
-def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpContext) -> Image:
+def _aligned_to(names: tuple[str, ...], img: Image, port: str) -> np.ndarray:
+    """``img``'s planes in the order ``names`` (a real frame: the image the warps read)."""
+    missing = [c for c in names if c not in img.channels]
+    if missing:
+        raise OpError(f"the real frame on '{port}' lacks channels {', '.join(missing)}", field=port,
+                      fix=f"connect a `warp` node to '{port}' (at a real frame it passes its image through)")
+    return img.pixels[:, :, [img.index(c) for c in names]]
+
+
+def _inbetween(params: BlendParams, a, b, ctx: OpContext) -> Image:
     """Mode ``inbetween`` (see the module docstring)."""
     from operators.inbetween.warp import VIS, split_sample
 
+    real: tuple[Image, Image] | None = None
+    if isinstance(a, tuple) and isinstance(b, tuple):      # frame_fallback: (in-between, real frame)
+        (a, real_a), (b, real_b) = a, b
+        real = (real_a, real_b)
     if a is None:
         raise OpError("input 'a' is not connected", field="a",
                       fix="connect the warp node that builds from the previous sample to 'a'")
@@ -228,6 +263,24 @@ def _inbetween(params: BlendParams, a: Image | None, b: Image | None, ctx: OpCon
     share = float(np.mean(poor))
     meta = dict(a.meta)
     meta["inbetween.fallback_share"] = share
+    names = tuple(a.channels[i] for i in keep)
+    failing = share
+    if real is not None and params.frame_fallback is not None:
+        colour = [i for i, c in enumerate(names) if c in ("R", "G", "B")] or list(range(len(names)))
+        apart = np.mean(np.abs(pa[:, :, colour] - pb[:, :, colour]), axis=2) > np.float32(params.mismatch)
+        failing = float(np.mean(poor | apart))
+    if real is not None and params.frame_fallback is not None and failing > params.frame_fallback:
+        lo = _aligned_to(names, real[0], "a")
+        hi = _aligned_to(names, real[1], "b")
+        if params.fallback == "dissolve":
+            out = (np.float32(1) - t) * lo + t * hi
+        else:
+            out = np.array(lo if frac <= Fraction(1, 2) else hi, np.float32)
+        meta["inbetween.fallback"] = "frame"
+        ctx.warn(f"whole frame at {ctx.sample} fell back to {'a hold' if params.fallback == 'nearest' else 'a dissolve'} "
+                 f"of the real frames: {failing * 100:.1f} % of pixels seen poorly from both sides or "
+                 f"differing by more than {params.mismatch:g} (frame_fallback {params.frame_fallback:g})")
+        return Image(out, names, meta)
     if share > 0:
         ctx.warn(f"{share * 100:.2f} % of pixels at {ctx.sample} fell back to {params.fallback} "
                  f"(both sides' visibility below {params.threshold:g})")
@@ -363,6 +416,9 @@ warped frames weighted by time and occlusion). Where both visibilities are below
 the result fades to 'fallback' (fully so where both are 0): 'dissolve' = (1-t)*a + t*b, or
 'nearest' = a for t <= 1/2, else b (both of the warped images). The share of pixels below the
 threshold on both sides is reported as a warning per in-between (the render log lists them).
+With 'frame_fallback' set, an in-between where more than that share of pixels falls back is
+made from the two real neighbouring frames instead, without vectors ('dissolve': (1-t)*previous
++ t*next; 'nearest': a hold of the nearer one), and `midframe run` lists those frames at the end.
 The result drops inbetween.vis, so real and in-between frames carry the same channels. At an
 integer sample only 'a' is read and passed through unchanged, bit for bit. 't' is the
 fractional part of the frame (axis 'frame') or of the view (axis 'view').

@@ -267,3 +267,61 @@ def test_inbetween_bad_input():
         ib(mix=0.5)
     with pytest.raises(pydantic.ValidationError):
         ib(threshold=0)
+
+
+def test_frame_fallback_needs_the_real_frames_too():
+    s = Sample(Fraction(5, 2))
+    assert blend_needs(ib(frame_fallback=0.3), s) == {"a": (s, Sample(2)), "b": (s, Sample(3))}
+    assert blend_needs(ib(frame_fallback=0.3), Sample(2)) == {"a": Sample(2)}
+    v = Sample(4, Fraction(7, 3))
+    assert blend_needs(ib(frame_fallback=0.3, axis="view"), v) == {"a": (v, Sample(4, 2)), "b": (v, Sample(4, 3))}
+
+
+def _real(value):
+    return Image(np.full((3, 4, 4), value, np.float32), ("R", "G", "B", "A"))
+
+
+@pytest.mark.parametrize("fallback", ["dissolve", "nearest"])
+def test_frame_fallback_makes_the_whole_frame_from_the_real_frames(fallback):
+    # 4 of 12 pixels seen by neither side: above a frame_fallback of 0.25, so the whole frame is
+    # the dissolve (1 - t) * 10 + t * 30 of the real frames, or a hold of the nearer (t = 1/4: the previous)
+    vis = np.ones((3, 4), np.float32)
+    vis[0, :] = 0.0
+    warnings: list[str] = []
+    prev, nxt = _real(10.0), _real(30.0)
+    out = run_op(BLEND, ib(fallback=fallback, frame_fallback=0.25),
+                 {"a": (warped(2.0, vis), prev), "b": (warped(2.05, vis), nxt)}, sample=Sample(Fraction(1, 4)),
+                 warnings=warnings)
+    assert out.channels == ("R", "G", "B", "A")
+    if fallback == "dissolve":
+        np.testing.assert_allclose(out.pixels, 0.75 * 10.0 + 0.25 * 30.0, rtol=1e-6)
+    else:
+        np.testing.assert_array_equal(out.pixels, prev.pixels)          # a hold: bit for bit
+    assert out.meta["inbetween.fallback"] == "frame"
+    assert len(warnings) == 1 and "whole frame" in warnings[0] and "33.3 %" in warnings[0]
+
+
+def test_frame_fallback_below_its_share_changes_nothing():
+    vis = np.ones((3, 4), np.float32)
+    vis[0, :2] = 0.0                         # 2 of 12: below 0.25
+    a, b = warped(2.0, vis), warped(2.05, vis)   # the sides agree within mismatch (0.1)
+    plain = run_op(BLEND, ib(), {"a": a, "b": b}, sample=Sample(Fraction(1, 4)), warnings=[])
+    guarded = run_op(BLEND, ib(frame_fallback=0.25), {"a": (a, _real(10.0)), "b": (b, _real(30.0))},
+                     sample=Sample(Fraction(1, 4)), warnings=[])
+    np.testing.assert_array_equal(guarded.pixels, plain.pixels)
+    assert "inbetween.fallback" not in guarded.meta
+
+
+def test_frame_fallback_counts_pixels_where_the_sides_tell_different_stories():
+    # every pixel seen from both sides, but 6 of 12 differ by 0.5 (> mismatch 0.1): above 0.25
+    a, b = warped(2.0, 1.0), warped(2.0, 1.0).pixels.copy()
+    b[:, :2, :3] = 2.5
+    b = Image(b, a.channels)
+    warnings: list[str] = []
+    out = run_op(BLEND, ib(frame_fallback=0.25), {"a": (a, _real(10.0)), "b": (b, _real(30.0))},
+                 sample=Sample(Fraction(1, 2)), warnings=warnings)
+    np.testing.assert_allclose(out.pixels, 20.0, rtol=1e-6)
+    assert "50.0 %" in warnings[0]
+    loose = run_op(BLEND, ib(frame_fallback=0.25, mismatch=0.6), {"a": (a, _real(10.0)), "b": (b, _real(30.0))},
+                   sample=Sample(Fraction(1, 2)), warnings=[])
+    assert "inbetween.fallback" not in loose.meta
