@@ -20,7 +20,7 @@ from graphcore.errors import GraphErrors, InputError, MidframeError
 from graphcore.registry import FrameRange, PluginError, Registry
 from graphcore.sample import compact_frames
 
-__all__ = ["main", "build_parser"]
+__all__ = ["build_parser", "main"]
 
 log = logging.getLogger("midframe")
 
@@ -207,7 +207,12 @@ def _print_warnings(warnings) -> None:
 # -- commands --------------------------------------------------------------------------------------
 def cmd_check(args: argparse.Namespace) -> int:
     from graphcore.evaluate import Evaluator
-    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.execute.plan import (
+        check_targets,
+        make_tasks,
+        output_frames,
+        protected_paths,
+    )
     from graphcore.validate import load_graph
 
     reg = _registry(args.plugins)
@@ -362,7 +367,12 @@ def cmd_chunks(args: argparse.Namespace) -> int:
 
     from graphcore.evaluate import Evaluator
     from graphcore.execute.chunks import plan_chunks
-    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.execute.plan import (
+        check_targets,
+        make_tasks,
+        output_frames,
+        protected_paths,
+    )
     from graphcore.validate import load_graph
 
     reg = _registry(args.plugins)

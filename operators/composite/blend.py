@@ -38,7 +38,7 @@ from graphcore.sample import Sample
 
 from ._channels import require_same_size
 
-__all__ = ["BLEND", "BlendParams", "blend", "blend_needs", "PORTS"]
+__all__ = ["BLEND", "PORTS", "BlendParams", "blend", "blend_needs"]
 
 PORTS = ("a", "b", "c", "d")
 
@@ -109,7 +109,7 @@ class BlendParams(BaseModel):
     )
 
     @model_validator(mode="after")
-    def _check(self) -> "BlendParams":
+    def _check(self) -> BlendParams:
         if self.mode == "inbetween" and (self.mix is not None or self.weights is not None):
             raise ValueError("mode 'inbetween' takes its weights from the sample and the inputs' "
                              "inbetween.vis; remove 'mix' and 'weights' or use mode 'mix'")

@@ -65,7 +65,7 @@ def jolted(tmp_path_factory):
 
 
 def test_the_jolt_is_where_the_risk_is(jolted):
-    doc, out, err, _ = jolted
+    doc, _out, err, _ = jolted
     ranked = sorted(doc["frames"], key=lambda e: -e["risk"])
     # in-betweens at source times 1004 1/2 and 1005 1/2 (output frames 1008 and 1010) have the
     # knocked frame as a neighbour: they must be the two riskiest
@@ -129,7 +129,7 @@ def test_too_short_a_source_exits_2(tmp_path):
 
 def test_unknown_node_exits_2(tmp_path):
     src = _plate(tmp_path / "src", [0, 1, 2])
-    rc, out, err = _assess(str(GRAPHS / "retime.json"), "--set", f"src={src}", "--set",
+    rc, _out, err = _assess(str(GRAPHS / "retime.json"), "--set", f"src={src}", "--set",
                            f"dst={tmp_path}/o.%04d.exr", "--set", "slowdown=2", "--node", "plate")
     assert rc == 2 and "--node" in err and "not a retime" in err
 
@@ -139,7 +139,7 @@ def test_a_foreign_report_folder_is_refused_and_left_alone(tmp_path):
     mine = tmp_path / "shots"
     mine.mkdir()
     (mine / "notes.txt").write_text("keep me")
-    rc, out, err = _assess(str(GRAPHS / "retime.json"), "--set", f"src={src}", "--set",
+    rc, _out, err = _assess(str(GRAPHS / "retime.json"), "--set", f"src={src}", "--set",
                            f"dst={tmp_path}/o.%04d.exr", "--set", "slowdown=2", "--report", str(mine))
     assert rc == 2 and "--report" in err and (mine / "notes.txt").read_text() == "keep me"
     assert sorted(p.name for p in mine.iterdir()) == ["notes.txt"]
