@@ -1,7 +1,7 @@
 """``midframe assess``: which in-betweens of a render are likely to break, told by the shot itself.
 
-The graph's own in-between chain (everything that feeds its ``retime`` node) is run a second time on
-the source with every other frame left out: each real source frame ``n`` is rebuilt from ``n - 1`` and
+The graph's own in-between chain (everything that feeds its ``retime`` or ``view-path`` node) is run
+a second time on the source with every other frame left out: each real source frame ``n`` is rebuilt from ``n - 1`` and
 ``n + 1`` (leave-one-out, the frame-interpolation protocol of Baker et al., IJCV 92(1), 2011) and
 compared with the real one. The rebuild spans twice the motion of a real in-between, so its error
 is a stress test of exactly the vectors, occlusions and detail the render meets between ``n - 1`` and
@@ -20,13 +20,17 @@ in percent of full scale, higher is worse. ``2 min(t, 1 - t)`` says an in-betwee
 frame moves less from it (the blend leans on the nearer side); the form is our own, chosen to rank
 frames, not a published model nor a promise of the error.
 
-How the rebuild is made: each ``read`` node with a frame range under the in-between gets a
-``retime`` in ``curve`` mode in front of it that shows source frame ``first + p + 2 (k - first)`` at
-frame ``k`` (``p`` = 0 or 1 picks the frames kept), so every node of the chain (vectors, smoothing,
-warps, blend, mattes) runs unchanged, with its own params, at the fractional sample halfway between
-two kept frames. Stills (one file, no frame range) are left alone. Both graphs share one cache, so
-with ``--cache`` on the render's folder the vectors of the real pairs computed here are not computed
-again by the render.
+How the rebuild is made: where the samples along the axis start (a ``read`` of a sequence or of a
+rig, a ``rig`` of separate reads: a node with a range whose inputs have none) assess puts its own
+``every-other`` node, which shows sample ``first + p + 2 (k - first)`` at ``k`` (``p`` = 0 or 1 picks
+the samples kept), so every node of the chain (vectors, smoothing, warps, blend, mattes) runs
+unchanged, with its own params, at the fractional sample halfway between two kept ones. Stills (one
+file, no range) are left alone. Both graphs share one cache, so with ``--cache`` on the render's
+folder the vectors of the real pairs computed here are not computed again by the render.
+
+The same holds across the cameras of a rig: for a ``view-path`` (view morphs, stereo in-betweens) the
+in-betweens run along the views, real cameras are rebuilt from the cameras either side, and a camera
+stands for a frame throughout.
 """
 
 from __future__ import annotations
@@ -37,17 +41,18 @@ import os
 from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass, field
 from fractions import Fraction
-from typing import Any
+from typing import Any, Literal
 
 import cv2
 import numpy as np
+from pydantic import BaseModel, ConfigDict, Field
 
 from graphcore.cache import Cache, DiskCache, MemoryCache
 from graphcore.errors import InputError
 from graphcore.evaluate import Evaluator
 from graphcore.execute.plan import output_frames
 from graphcore.image import Image
-from graphcore.registry import FrameRange, Registry, default_registry
+from graphcore.registry import FrameRange, Operator, Port, Registry, default_registry
 from graphcore.sample import Sample
 from graphcore.spec import Graph
 from graphcore.validate import load_graph
@@ -62,7 +67,7 @@ VERSION = 1
 # span twice the motion of a real in-between, so risk runs above the error it predicts), not a
 # published threshold.
 LEVELS = {"watch": 3.0, "high": 6.0}
-_TIME_OPS = ("retime",)
+_PATH_OPS = ("retime", "view-path")
 _VECTOR_CHANNELS = ("fwd.x", "fwd.y")
 
 
@@ -93,25 +98,60 @@ class Assessment:
 
 
 # -- finding the parts of the graph ---------------------------------------------------------------
-def _time_node(graph: Graph, node: str | None) -> str:
+def _path_node(graph: Graph, node: str | None) -> str:
+    """The retime or view-path node whose in-betweens are assessed."""
     if node is not None:
         if node not in graph.nodes:
             raise InputError(f"no node '{node}' in the graph", file=graph.file, field="--node",
                              fix=f"name one of: {', '.join(sorted(graph.nodes))}")
-        if graph.nodes[node].op not in _TIME_OPS:
-            raise InputError(f"node '{node}' is a '{graph.nodes[node].op}' node, not a retime",
+        if graph.nodes[node].op not in _PATH_OPS:
+            raise InputError(f"node '{node}' is a '{graph.nodes[node].op}' node, not a retime or view-path",
                              file=graph.file, node_id=node, field="--node",
-                             fix="name the retime node whose in-betweens should be assessed")
+                             fix="name the retime or view-path node whose in-betweens should be assessed")
         return node
-    found = sorted(nid for nid, n in graph.nodes.items() if n.op in _TIME_OPS)
+    found = sorted(nid for nid, n in graph.nodes.items() if n.op in _PATH_OPS)
     if not found:
-        raise InputError("assess needs a graph with a retime node (the in-betweens are what it assesses)",
-                         file=graph.file, field="nodes",
-                         fix="assess a retime graph such as graphs/retime.json or graphs/fg-retime-over.json")
+        raise InputError("assess needs a graph with a retime or view-path node (the in-betweens are what it "
+                         "assesses)", file=graph.file, field="nodes",
+                         fix="assess a graph such as graphs/retime.json, graphs/fg-retime-over.json or "
+                             "graphs/viewmorph.json")
     if len(found) > 1:
-        raise InputError(f"the graph has {len(found)} retime nodes ({', '.join(found)})", file=graph.file,
-                         field="--node", fix="name the one to assess with --node")
+        raise InputError(f"the graph has {len(found)} retime or view-path nodes ({', '.join(found)})",
+                         file=graph.file, field="--node", fix="name the one to assess with --node")
     return found[0]
+
+
+class _StepParams(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    axis: Literal["frame", "view"] = Field(description="The axis every other sample of is kept.")
+    first: int = Field(description="The first sample along the axis (kept when parity is 0).")
+    last: int = Field(description="The last sample along the axis.")
+    parity: int = Field(ge=0, le=1, description="0 keeps first, first + 2, ...; 1 keeps first + 1, first + 3, ...")
+
+
+def _step_needs(params: _StepParams, sample: Sample) -> dict[str, Sample]:
+    pos = sample.frame if params.axis == "frame" else sample.view
+    src = params.first + params.parity + 2 * (pos - params.first)
+    return {"image": sample.at_frame(src) if params.axis == "frame" else sample.at_view(src)}
+
+
+def _step_range(axis: str):
+    def hook(params: _StepParams, inputs: Mapping[str, FrameRange | None]) -> FrameRange | None:
+        if params.axis != axis:
+            return inputs.get("image")
+        return FrameRange(params.first, params.first + (params.last - params.first - params.parity) // 2)
+    return hook
+
+
+#: assess's own operator (never in a graph file): sample k of its output is sample
+#: first + parity + 2 (k - first) of its input along one axis, unchanged.
+EVERY_OTHER = Operator(
+    name="every-other", version=1, summary="every other sample along one axis (assess's leave-one-out)",
+    params=_StepParams, compute=lambda params, inputs, ctx: inputs["image"],
+    inputs=(Port("image", "the samples to thin out"),), needs=_step_needs,
+    frames=_step_range("frame"), views=_step_range("view"),
+    outputs="the input's channels, unchanged")
 
 
 def _vectors_node(graph: Graph, ev: Evaluator, inbetween: str) -> str | None:
@@ -124,30 +164,37 @@ def _vectors_node(graph: Graph, ev: Evaluator, inbetween: str) -> str | None:
     return None
 
 
-def _decimated(graph: Graph, ev: Evaluator, inbetween: str, parity: int, registry: Registry) -> Graph | None:
-    """The in-between chain of ``graph`` on every other source frame (see the module docstring);
-    None when some plate is too short to keep two frames."""
+def _decimated(graph: Graph, ev: Evaluator, inbetween: str, axis: str, span: FrameRange, parity: int,
+               registry: Registry) -> Graph | None:
+    """The in-between chain of ``graph`` on every other sample of ``span`` along ``axis`` (see
+    the module docstring); None when fewer than two samples would be kept."""
+    if span.first + (span.last - span.first - parity) // 2 <= span.first:
+        return None
     keep = set(graph.upstream(inbetween))
     nodes = {nid: dict(spec) for nid, spec in graph.source["nodes"].items() if nid in keep}
+    ranged = ev.frames if axis == "frame" else ev.views
     for nid in sorted(keep):
-        if graph.nodes[nid].op != "read":
+        # where the samples along the axis start: a node with a range whose inputs have none
+        # (a read of a sequence or of a rig, a rig of separate reads); stills are left alone
+        if ranged(nid) is None or any(ranged(src) is not None for src in graph.nodes[nid].inputs.values()):
             continue
-        rng = ev.frames(nid)
-        if rng is None:
-            continue                                     # a still: the same at every frame
-        last_out = rng.first + (rng.last - rng.first - parity) // 2
-        if last_out <= rng.first:
-            return None
         new_id = f"{nid}.assess-source"
         while new_id in nodes:
             new_id += "_"
         nodes[new_id] = nodes.pop(nid)
-        nodes[nid] = {"op": "retime", "inputs": {"image": new_id},
-                      "params": {"mode": "curve", "first": rng.first, "last": rng.last,
-                                 "keys": [[rng.first, rng.first + parity],
-                                          [last_out, rng.first + parity + 2 * (last_out - rng.first)]]}}
+        nodes[nid] = {"op": EVERY_OTHER.name, "inputs": {"image": new_id},
+                      "params": {"axis": axis, "first": span.first, "last": span.last, "parity": parity}}
     doc = {"schema": graph.source["schema"], "version": graph.source["version"], "nodes": nodes}
     return load_graph(doc, registry=registry, file=graph.file).graph
+
+
+def _axis(graph: Graph, path: str, inbetween: str) -> str:
+    """The axis the in-betweens run along: the in-between blend's, else time for a retime and
+    the cameras for a view-path."""
+    node = graph.nodes[inbetween]
+    if node.op == "blend" and getattr(node.params, "mode", None) == "inbetween":
+        return str(node.params.axis)
+    return "frame" if graph.nodes[path].op == "retime" else "view"
 
 
 def _sides(graph: Graph, inbetween: str) -> tuple[str, str] | None:
@@ -269,19 +316,22 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
                              field="--cache", fix="name a writable folder") from None
     cache = Cache(MemoryCache(memory_bytes), disk)
     ev = Evaluator(graph, registry, cache)
-    timing = _time_node(graph, node)
+    timing = _path_node(graph, node)
     inbetween = graph.nodes[timing].inputs.get("image")
     if inbetween is None:
-        raise InputError("the retime node has no input", file=graph.file, node_id=timing,
+        raise InputError(f"the {graph.nodes[timing].op} node has no input", file=graph.file, node_id=timing,
                          field="inputs.image", fix="connect the in-between node to its 'image' input")
-    src = ev.frames(inbetween)
-    if src is None or src.last - src.first < 2:
-        have = "no frame range" if src is None else f"frames {src}"
-        raise InputError(f"assess needs at least three source frames to leave one out; the source has {have}",
+    axis = _axis(graph, timing, inbetween)
+    word = "source frames" if axis == "frame" else "cameras"
+    span = ev.frames(inbetween) if axis == "frame" else ev.views(inbetween)
+    if span is None or span.last - span.first < 2:
+        have = "none" if span is None else f"{span.last - span.first + 1} ({span})"
+        raise InputError(f"assess needs at least three {word} to leave one out; there are {have}",
                          file=graph.file, node_id=inbetween, field="nodes",
-                         fix="assess a sequence of three frames or more")
+                         fix=f"assess {'a sequence of three frames' if axis == 'frame' else 'a rig of three cameras'} "
+                             "or more")
     views = ev.views(timing)
-    view = Fraction(views.first if views is not None else 0)
+    view0 = Fraction(views.first if views is not None else 0)
     out_range = ev.frames(timing)
     if frames is not None:
         wanted = list(frames)
@@ -297,58 +347,79 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
         if on_step is not None:
             on_step(text)
 
-    # output frame -> the source time it shows; only in-betweens are assessed
+    def along(sample: Sample) -> Fraction:
+        return sample.frame if axis == "frame" else sample.view
+
+    def at(n: Fraction | int, other: Fraction) -> Sample:
+        return Sample(n, other) if axis == "frame" else Sample(other, n)
+
+    # output frame -> the sample it shows; only in-betweens (fractional along the axis) are assessed
     entries: list[dict[str, Any]] = []
+    where: dict[int, Sample] = {}
     for k in wanted:
-        asked = [r for r in ev.requests(timing, Sample(k, view)) if r[0] == "image"]
+        asked = [r for r in ev.requests(timing, Sample(k, view0)) if r[0] == "image"]
         samples = [s for s in asked[0][2] if s is not None] if asked else []
         if not samples:
             continue
-        when = samples[len(samples) // 2].frame          # the middle of a shutter: its centre time
-        if when.denominator == 1:
-            continue                                     # a real frame, passed through unchanged
-        n = math.floor(when)
-        entries.append({"frame": k, "source_time": str(when), "t": float(when - n), "pair": [n, n + 1]})
+        sample = samples[len(samples) // 2]              # the middle of a shutter: its centre time
+        pos = along(sample)
+        if pos.denominator == 1:
+            continue                                     # a real frame or camera, passed through unchanged
+        n = math.floor(pos)
+        where[k] = sample
+        entry: dict[str, Any] = {"frame": k, "source_time": str(sample.frame)}
+        if axis == "view" or sample.view:
+            entry["source_view"] = str(sample.view)
+        entry.update({"axis": axis, "t": float(pos - n), "pair": [n, n + 1]})
+        entries.append(entry)
+    # the other coordinate of the real samples around each in-between (a sweep's time, rounded down)
+    other = {e["frame"]: Fraction(math.floor(where[e["frame"]].view if axis == "frame" else where[e["frame"]].frame))
+             for e in entries}
+    if entries:
+        log.info("assessing %d in-between(s) of node '%s' along %s: leave-one-out rebuilds of %s",
+                 len(entries), timing, "time" if axis == "frame" else "the cameras", word)
 
-    # 1. leave-one-out: every source frame that holds an in-between in its span, rebuilt
+    # 1. leave-one-out: every real sample that holds an in-between in its span, rebuilt
     decimated: dict[int, Evaluator | None] = {}
-    rebuilt: dict[int, _Rebuilt] = {}
-    for n in sorted({x for e in entries for x in e["pair"] if src.first < x < src.last}):
-        parity = (n - src.first - 1) % 2
+    with_step = registry.copy()
+    with_step.add(EVERY_OTHER)
+    rebuilt: dict[tuple[int, Fraction], _Rebuilt] = {}
+    for n, o in sorted({(x, other[e["frame"]]) for e in entries for x in e["pair"] if span.first < x < span.last}):
+        parity = (n - span.first - 1) % 2
         if parity not in decimated:
-            g = _decimated(graph, ev, inbetween, parity, registry)
-            decimated[parity] = None if g is None else Evaluator(g, registry, cache)
+            g = _decimated(graph, ev, inbetween, axis, span, parity, with_step)
+            decimated[parity] = None if g is None else Evaluator(g, with_step, cache)
         dev = decimated[parity]
         if dev is None:
             continue
-        step(f"rebuilding source frame {n} from {n - 1} and {n + 1}")
-        got = encode_srgb(_rgb(dev.evaluate(inbetween, Sample(Fraction(src.first) + Fraction(n - src.first - parity, 2),
-                                                                 view))))
-        real = encode_srgb(_rgb(ev.evaluate(inbetween, Sample(n, view))))
+        step(f"rebuilding {word[:-1]} {n} from {n - 1} and {n + 1}")
+        got = encode_srgb(_rgb(dev.evaluate(inbetween, at(Fraction(span.first) + Fraction(n - span.first - parity, 2),
+                                                           o))))
+        real = encode_srgb(_rgb(ev.evaluate(inbetween, at(n, o))))
         diff = got - real
-        rebuilt[n] = _Rebuilt(float(np.mean(diff.astype(np.float64) ** 2)),
-                              _shrunk(np.mean(np.abs(diff), axis=2), keep_max=True), _shrunk(got))
+        rebuilt[(n, o)] = _Rebuilt(float(np.mean(diff.astype(np.float64) ** 2)),
+                                   _shrunk(np.mean(np.abs(diff), axis=2), keep_max=True), _shrunk(got))
 
     # 2. the vectors of every real pair an in-between is built from
     vec_node = _vectors_node(graph, ev, inbetween)
-    pairs: dict[int, _Pair] = {}
+    pairs: dict[tuple[int, Fraction], _Pair] = {}
     if vec_node is not None:
-        for n in sorted({e["pair"][0] for e in entries}):
-            step(f"vectors between source frames {n} and {n + 1}")
-            second = ev.evaluate(vec_node, Sample(n + 1, view)) if n + 1 <= src.last else None
-            pairs[n] = _pair(ev.evaluate(vec_node, Sample(n, view)), second)
+        for n, o in sorted({(e["pair"][0], other[e["frame"]]) for e in entries}):
+            step(f"vectors between {word} {n} and {n + 1}")
+            second = ev.evaluate(vec_node, at(n + 1, o)) if n + 1 <= span.last else None
+            pairs[(n, o)] = _pair(ev.evaluate(vec_node, at(n, o)), second)
 
     # 3. the two warped sides of each real in-between, and the risk
     sides = _sides(graph, inbetween)
     for e in entries:
-        n, when = e["pair"][0], Sample(Fraction(e["source_time"]), view)
+        n, when, o = e["pair"][0], where[e["frame"]], other[e["frame"]]
         disagree = None
         if sides is not None:
             step(f"both sides of output frame {e['frame']}")
             disagree = _disagree(ev.evaluate(sides[0], when), ev.evaluate(sides[1], when))
-        around = [rebuilt[x].mse for x in e["pair"] if x in rebuilt]
+        around = [rebuilt[(x, o)].mse for x in e["pair"] if (x, o) in rebuilt]
         loo = math.sqrt(sum(around) / len(around)) if around else None
-        pair = pairs.get(n, _Pair())
+        pair = pairs.get((n, o), _Pair())
         risk = risk_of(loo, disagree, e["t"], pair.unsure)
         e.update({"risk": risk,
                   "level": "unknown" if risk is None else
@@ -361,11 +432,13 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
         "schema": SCHEMA, "version": VERSION,
         "graph": {"file": graph.file, "hash": f"sha256:{graph.hash}",
                   "vars": {k: str(v) for k, v in graph.variables.items()}},
-        "time_node": timing, "inbetween_node": inbetween, "vectors_node": vec_node,
-        "source_frames": [src.first, src.last], "threshold": dict(LEVELS),
+        "time_node": timing, "inbetween_node": inbetween, "vectors_node": vec_node, "axis": axis,
+        "source_frames" if axis == "frame" else "cameras": [span.first, span.last], "threshold": dict(LEVELS),
         "frames": entries,
-        "sources": [{"frame": n, "psnr": -10.0 * math.log10(max(r.mse, 1e-12)), "rebuilt_from": [n - 1, n + 1]}
-                    for n, r in sorted(rebuilt.items())],
+        "sources": [{("frame" if axis == "frame" else "camera"): n,
+                     **({"at_" + ("view" if axis == "frame" else "frame"): str(o)} if o else {}),
+                     "psnr": -10.0 * math.log10(max(r.mse, 1e-12)), "rebuilt_from": [n - 1, n + 1]}
+                    for (n, o), r in sorted(rebuilt.items())],
         "summary": {"in_betweens": len(entries),
                     "high": sum(e["level"] == "high" for e in entries),
                     "watch": sum(e["level"] == "watch" for e in entries),
@@ -373,15 +446,15 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
     }
     out = Assessment(doc, graph=graph)
     for e in ranked[:worst]:
-        k, n = e["frame"], e["pair"][0]
+        k, n, o = e["frame"], e["pair"][0], other[e["frame"]]
         step(f"pictures of output frame {k}")
-        pics: dict[str, np.ndarray] = {"thumb": _to8(_shrunk(encode_srgb(_rgb(ev.evaluate(timing, Sample(k, view))))))}
-        pair = pairs.get(n)
+        pics: dict[str, np.ndarray] = {"thumb": _to8(_shrunk(encode_srgb(_rgb(ev.evaluate(timing, Sample(k, view0))))))}
+        pair = pairs.get((n, o))
         if pair is not None and pair.vectors is not None:
             pics["vectors"] = _shrunk(pair.vectors)
         if pair is not None and pair.confidence is not None:
             pics["confidence"] = _shrunk(np.clip(pair.confidence, 0, 1).astype(np.float32))
-        worse = max((rebuilt[x] for x in e["pair"] if x in rebuilt), key=lambda r: r.mse, default=None)
+        worse = max((rebuilt[(x, o)] for x in e["pair"] if (x, o) in rebuilt), key=lambda r: r.mse, default=None)
         if worse is not None:
             pics["rebuilt"] = _to8(worse.rebuilt)
             pics["error"] = worse.error

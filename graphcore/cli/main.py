@@ -113,11 +113,12 @@ def build_parser() -> argparse.ArgumentParser:
                        description="Rebuild real source frames from neighbours one step further apart "
                        "(leave-one-out), compare, and combine that with the two warped sides of every "
                        "in-between and its vector confidence into a risk per in-between output frame "
-                       "(higher is worse). Prints a table; --json and --report keep it.")
+                       "(higher is worse), for a retime or a view morph. Prints a table; --json and --report keep it.")
     _add_graph_args(p)
     p.add_argument("--frames", type=_frames_arg, metavar="A-B", help="output frames to assess (default: all "
                    "the render would write)")
-    p.add_argument("--node", metavar="ID", help="the retime node to assess (only needed when there are several)")
+    p.add_argument("--node", metavar="ID", help="the retime or view-path node to assess (only needed when there "
+                   "are several)")
     p.add_argument("--json", dest="json_out", metavar="OUT.json", help="write the assessment as JSON")
     p.add_argument("--report", metavar="DIR", help="write a static HTML report (index.html and pictures) into "
                    "DIR (new, or a report folder written before)")

@@ -76,6 +76,13 @@ class Registry:
         self._loaded[op.name] = op
         self._found.setdefault(op.name, (Found(op.name, op.source or "(added)", ""), None))
 
+    def copy(self) -> "Registry":
+        """An independent registry with the same operators (add to it without touching this one)."""
+        other = Registry(self._found)
+        other._loaded = dict(self._loaded)
+        other._broken = dict(self._broken)
+        return other
+
     def builtin_only(self) -> "Registry":
         """A registry of just the operators the midframe distribution itself declares."""
         return Registry({n: v for n, v in self._found.items() if v[0].distribution == BUILTIN_DISTRIBUTION})

@@ -175,3 +175,28 @@ def test_render_falls_back_whole_frames_where_vectors_fail_and_lists_them(tmp_pa
     # the pan on either side of the cut is still built along its vectors (not listed)
     listed = text.split("fell back whole")[1].splitlines()[0]
     assert "1002" not in listed and "1006" not in listed
+
+
+def test_a_view_morph_is_assessed_along_the_cameras(tmp_path):
+    """graphs/viewmorph.json over a row of seven cameras panning steadily, camera 4 knocked off the
+    line: the in-between views beside it are the riskiest; real cameras get no entry."""
+    folder = tmp_path / "rig"
+    folder.mkdir()
+    tex = _texture(96, 160)
+    for j in range(1, 8):
+        dx = 1.5 * j + (4.0 if j == 4 else 0.0)
+        m = np.float32([[1, 0, -dx], [0, 1, 0]])
+        rgb = cv2.warpAffine(tex, m, (160, 96), flags=cv2.INTER_CUBIC)[16:80, 24:120]
+        write_exr(str(folder / f"cam.{j:04d}.exr"),
+                  Image(np.dstack([rgb, np.ones(rgb.shape[:2], np.float32)]), ("R", "G", "B", "A")))
+    rc, _, err = _assess(str(GRAPHS / "viewmorph.json"), "--set", f"src={folder}/cam.%04d.exr", "--set",
+                         f"dst={tmp_path}/o/o.%04d.exr", "--set", "between=1", "--json", str(tmp_path / "a.json"))
+    assert rc == 0, err
+    doc = json.loads((tmp_path / "a.json").read_text())
+    assert doc["axis"] == "view" and doc["cameras"] == [1, 7]
+    # camera j lands on output 1 + 2 (j - 1); the in-betweens are the even outputs
+    assert [e["frame"] for e in doc["frames"]] == [2, 4, 6, 8, 10, 12]
+    assert [e["source_view"] for e in doc["frames"]] == ["3/2", "5/2", "7/2", "9/2", "11/2", "13/2"]
+    ranked = sorted(doc["frames"], key=lambda e: -e["risk"])
+    assert {ranked[0]["frame"], ranked[1]["frame"]} == {6, 8}, [(e["frame"], e["risk"]) for e in ranked]
+    assert {s["camera"] for s in doc["sources"]} == set(range(2, 7))
