@@ -278,8 +278,8 @@ def _shrunk(a: np.ndarray, width: int = 960, keep_max: bool = False) -> np.ndarr
 @dataclass
 class _Rebuilt:
     mse: float
-    error: np.ndarray          # per-pixel absolute error (sRGB-encoded, mean of channels), shrunk
-    rebuilt: np.ndarray        # the rebuild, sRGB-encoded, shrunk
+    error: np.ndarray          # per-pixel absolute error (sRGB-encoded, mean of channels), shrunk, float16
+    rebuilt: np.ndarray        # the rebuild, sRGB-encoded, shrunk, 8-bit (kept for every frame: small)
 
 
 def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable[str] = (),
@@ -398,7 +398,8 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
         real = encode_srgb(_rgb(ev.evaluate(inbetween, at(n, o))))
         diff = got - real
         rebuilt[(n, o)] = _Rebuilt(float(np.mean(diff.astype(np.float64) ** 2)),
-                                   _shrunk(np.mean(np.abs(diff), axis=2), keep_max=True), _shrunk(got))
+                                   _shrunk(np.mean(np.abs(diff), axis=2), keep_max=True).astype(np.float16),
+                                   _to8(_shrunk(got)))
 
     # 2. the vectors of every real pair an in-between is built from
     vec_node = _vectors_node(graph, ev, inbetween)
@@ -456,8 +457,8 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
             pics["confidence"] = _shrunk(np.clip(pair.confidence, 0, 1).astype(np.float32))
         worse = max((rebuilt[(x, o)] for x in e["pair"] if (x, o) in rebuilt), key=lambda r: r.mse, default=None)
         if worse is not None:
-            pics["rebuilt"] = _to8(worse.rebuilt)
-            pics["error"] = worse.error
+            pics["rebuilt"] = worse.rebuilt
+            pics["error"] = worse.error.astype(np.float32)
         out.pictures[k] = pics
     return out
 
