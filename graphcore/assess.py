@@ -35,6 +35,7 @@ stands for a frame throughout.
 
 from __future__ import annotations
 
+import json
 import logging
 import math
 import os
@@ -286,7 +287,8 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
            defaults: str | os.PathLike[str] | None = None, frames: FrameRange | None = None,
            node: str | None = None, cache_dir: str | os.PathLike[str] | None = None,
            memory_bytes: int = 2 << 30, registry: Registry | None = None, file: str | None = None,
-           worst: int = 6, on_step: Callable[[str], None] | None = None) -> Assessment:
+           worst: int = 6, on_step: Callable[[str], None] | None = None, jobs: int = 1,
+           plugins: Iterable[str] = ()) -> Assessment:
     """Assess every in-between output frame of a retime graph (see the module docstring).
 
     Parameters
@@ -296,7 +298,9 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
     node : the retime node (needed only when the graph has several)
     cache_dir : a disk cache folder (the render's own, to reuse the vectors computed here)
     worst : how many of the riskiest frames get pictures
-    on_step : called with a short text before each step (progress)
+    on_step : called with a short text before each step (progress; not from ``jobs`` workers)
+    jobs : worker processes; each assesses a contiguous run of the in-betweens (the samples at
+        the seams are rebuilt twice) and the results are joined (``plugins`` are loaded in each)
 
     Raises
     ------
@@ -378,6 +382,10 @@ def assess(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iterable
     if entries:
         log.info("assessing %d in-between(s) of node '%s' along %s: leave-one-out rebuilds of %s",
                  len(entries), timing, "time" if axis == "frame" else "the cameras", word)
+
+    if jobs > 1 and len(entries) >= 2:
+        return _in_workers(graph, [e["frame"] for e in entries], jobs=jobs, node=timing, cache_dir=cache_dir,
+                           memory_bytes=memory_bytes, worst=worst, plugins=list(plugins))
 
     # 1. leave-one-out: every real sample that holds an in-between in its span, rebuilt
     decimated: dict[int, Evaluator | None] = {}
@@ -470,3 +478,52 @@ def _to8(x: np.ndarray) -> np.ndarray:
     if x.shape[2] == 1:
         x = np.repeat(x, 3, axis=2)
     return np.clip(x[:, :, :3] * 255 + 0.5, 0, 255).astype(np.uint8)
+
+
+def _chunk_worker(payload: dict[str, Any]) -> tuple[dict[str, Any], dict[int, dict[str, np.ndarray]]]:
+    """One worker's share of ``assess(jobs=N)``: OpenCV pinned to its share of the cores."""
+    threads = payload["threads"]
+    for var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ[var] = str(threads)
+    cv2.setNumThreads(threads)
+    logging.getLogger("midframe.render").setLevel(logging.ERROR)
+    registry = Registry.from_entry_points(payload["plugins"])
+    found = assess(payload["source"], file=payload["file"], frames=FrameRange(*payload["frames"]),
+                   node=payload["node"], cache_dir=payload["cache_dir"], memory_bytes=payload["memory_bytes"],
+                   registry=registry, worst=payload["worst"])
+    return found.doc, found.pictures
+
+
+def _in_workers(graph: Graph, frames: list[int], *, jobs: int, node: str, cache_dir: Any, memory_bytes: int,
+                worst: int, plugins: list[str]) -> Assessment:
+    """``assess`` over contiguous runs of the in-between output ``frames`` in ``jobs`` processes,
+    joined: the riskiest frames of the whole are among the riskiest of each run, pictures included."""
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    jobs = min(jobs, len(frames))
+    size = -(-len(frames) // jobs)
+    runs = [frames[i:i + size] for i in range(0, len(frames), size)]
+    base = {"source": dict(graph.source), "file": graph.file, "node": node,
+            "cache_dir": None if cache_dir is None else os.fspath(cache_dir),
+            "memory_bytes": max(1 << 20, memory_bytes // jobs), "worst": worst, "plugins": plugins,
+            "threads": max(1, (os.cpu_count() or 1) // jobs)}
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=mp.get_context("forkserver")) as pool:
+        parts = list(pool.map(_chunk_worker, [{**base, "frames": (run[0], run[-1])} for run in runs]))
+    doc = dict(parts[0][0])
+    doc["graph"] = {"file": graph.file, "hash": f"sha256:{graph.hash}",
+                    "vars": {k: str(v) for k, v in graph.variables.items()}}
+    entries = sorted((e for part, _ in parts for e in part["frames"]), key=lambda e: e["frame"])
+    sources: dict[str, dict[str, Any]] = {}
+    for part, _ in parts:
+        for row in part["sources"]:
+            sources.setdefault(json.dumps({k: v for k, v in row.items() if k != "psnr"}, sort_keys=True), row)
+    ranked = sorted((e for e in entries if e["risk"] is not None), key=lambda e: -e["risk"])
+    doc["frames"] = entries
+    doc["sources"] = sorted(sources.values(), key=lambda r: (r.get("frame", r.get("camera")), str(r)))
+    doc["summary"] = {"in_betweens": len(entries),
+                      "high": sum(e["level"] == "high" for e in entries),
+                      "watch": sum(e["level"] == "watch" for e in entries),
+                      "worst": [e["frame"] for e in ranked[:worst]]}
+    pictures = {k: pics for _, part in parts for k, pics in part.items() if k in doc["summary"]["worst"]}
+    return Assessment(doc, pictures, graph)

@@ -124,6 +124,8 @@ def build_parser() -> argparse.ArgumentParser:
                    "DIR (new, or a report folder written before)")
     p.add_argument("--worst", type=_positive_int, default=6, metavar="N", help="pictures for the N riskiest "
                    "frames in the report (default 6)")
+    p.add_argument("--jobs", type=_positive_int, default=1, metavar="N", help="worker processes, each taking a "
+                   "contiguous run of the in-betweens (default 1)")
     p.add_argument("--cache", metavar="DIR", help="disk cache folder: give the render's own, and the vectors "
                    "computed here are not computed again by the render")
     p.add_argument("--memory", type=_positive_int, default=2048, metavar="MB", help="in-memory cache size "
@@ -275,7 +277,7 @@ def cmd_assess(args: argparse.Namespace) -> int:
     reg = _registry(args.plugins)
     found = assess(args.graph, sets=args.sets, defaults=args.defaults, frames=args.frames, node=args.node,
                    cache_dir=args.cache, memory_bytes=args.memory << 20, registry=reg, worst=args.worst,
-                   on_step=lambda text: log.info("assess: %s", text) if args.verbose else None)
+                   jobs=args.jobs, plugins=args.plugins, on_step=lambda text: log.info("assess: %s", text) if args.verbose else None)
     doc = found.doc
     if args.json_out:
         folder = os.path.dirname(os.path.abspath(args.json_out))

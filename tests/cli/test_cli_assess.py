@@ -200,3 +200,18 @@ def test_a_view_morph_is_assessed_along_the_cameras(tmp_path):
     ranked = sorted(doc["frames"], key=lambda e: -e["risk"])
     assert {ranked[0]["frame"], ranked[1]["frame"]} == {6, 8}, [(e["frame"], e["risk"]) for e in ranked]
     assert {s["camera"] for s in doc["sources"]} == set(range(2, 7))
+
+
+def test_jobs_give_the_same_assessment(jolted, tmp_path):
+    """Two worker processes, each a run of the in-betweens: the same risks, rebuilds and worst frames."""
+    doc, _, _, tmp = jolted
+    src = doc["graph"]["vars"]["src"]
+    rc, _, err = _assess(str(GRAPHS / "retime.json"), "--set", f"src={src}", "--set",
+                         f"dst={tmp}/out/o.%04d.exr", "--set", "slowdown=2", "--json", str(tmp_path / "j.json"),
+                         "--worst", "3", "--jobs", "2", "--report", str(tmp_path / "rep"))
+    assert rc == 0, err
+    par = json.loads((tmp_path / "j.json").read_text())
+    assert par["frames"] == doc["frames"]
+    assert par["sources"] == doc["sources"] and par["summary"] == doc["summary"]
+    for k in par["summary"]["worst"]:
+        assert (tmp_path / "rep" / "pictures" / f"frame{k}-thumb.png").is_file()
