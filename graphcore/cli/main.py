@@ -188,7 +188,8 @@ def _print_warnings(warnings) -> None:
 # -- commands --------------------------------------------------------------------------------------
 def cmd_check(args: argparse.Namespace) -> int:
     from graphcore.evaluate import Evaluator
-    from graphcore.execute.plan import check_targets, make_tasks, output_frames, protected_paths
+    from graphcore.execute.plan import (check_targets, make_tasks, output_frames, protected_paths,
+                                        unwritable_outputs)
     from graphcore.validate import load_graph
 
     reg = _registry(args.plugins)
@@ -202,6 +203,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     frames = output_frames(ev, None) if ev.sinks() else []
     tasks = make_tasks(ev, frames)
     check_targets(ev, tasks, protected_paths(ev))
+    _print_warnings(unwritable_outputs(ev, tasks))   # a farm node may have other rights: warn only
     span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
     print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
     return EXIT_OK
