@@ -72,16 +72,38 @@ class RunReport:
         return 1 if any(r.status == "failure" for r in self.failed) else 2
 
 
+#: Most frames one render may span (a feature film at 24 fps is under 200 000): a larger range comes
+#: from a mistake such as a slowdown of 1e9, and listing it would exhaust memory.
+MAX_FRAMES = 1_000_000
+
+
 def output_frames(ev: Evaluator, frames: FrameRange | None) -> list[int]:
-    """Frames to render: ``frames`` when given, else the union of the sinks' frame ranges."""
+    """Frames to render: ``frames`` when given, else the union of the sinks' frame ranges.
+
+    Raises ``InputError`` for a range of more than :data:`MAX_FRAMES` frames."""
     if frames is not None:
+        if frames.last - frames.first + 1 > MAX_FRAMES:
+            raise InputError(f"--frames {frames.first}-{frames.last} spans {frames.last - frames.first + 1} "
+                             f"frames, more than the {MAX_FRAMES} one render may span", field="--frames",
+                             fix="render a shorter range (split it with `midframe chunks`)")
         return list(frames)
-    ranges = [r for r in (ev.frames(s) for s in ev.sinks()) if r is not None]
+    ranges = {s: r for s, r in ((s, ev.frames(s)) for s in ev.sinks()) if r is not None}
     if not ranges:
         raise InputError("cannot tell which frames to render: no sink has a file-backed input",
                          file=ev.graph.file, field="--frames", fix="pass --frames FIRST-LAST")
-    lo = min(r.first for r in ranges)
-    hi = max(r.last for r in ranges)
+    for sink, r in sorted(ranges.items()):
+        if r.last - r.first + 1 > MAX_FRAMES:
+            raise InputError(f"the output would span frames {r.first}-{r.last} ({r.last - r.first + 1} frames), "
+                             f"more than the {MAX_FRAMES} one render may span", file=ev.graph.file,
+                             node_id=sink, field=f"nodes.{sink}.inputs",
+                             fix="check the timing upstream of this node (a retime's slowdown or frame "
+                                 "rates), or pass --frames FIRST-LAST")
+    lo = min(r.first for r in ranges.values())
+    hi = max(r.last for r in ranges.values())
+    if hi - lo + 1 > MAX_FRAMES:
+        raise InputError(f"the outputs together span frames {lo}-{hi}, more than the {MAX_FRAMES} one render "
+                         "may span", file=ev.graph.file, field="nodes",
+                         fix="render each output with its own --frames range")
     return list(range(lo, hi + 1))
 
 

@@ -12,6 +12,8 @@
   only from installed entry points or ``--plugin``; no spelling of a source plate's path (``..``,
   ``//``, ``./``, ``####``, a relative path, a symlinked folder or file, a hard link) lets ``write``
   replace it.
+- Damaged frames inside whole renders (100 examples), plates with missing or odd channels through
+  ``retime.json``, and absurd frame ranges (refused before the frame list is built).
 """
 
 from __future__ import annotations
@@ -27,6 +29,8 @@ import sys
 import numpy as np
 import OpenEXR
 import pytest
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
 
 from operators.io.write import TEMP_PREFIX
 from tests.cli.test_cli_retime import FIRST, picture, run_retime, sequence
@@ -414,3 +418,74 @@ def test_write_itself_refuses_a_hard_link_to_what_it_reads(tmp_path):
                       op_context(Sample(1), sources=(str(plate),)))
     assert info.value.field == "path" and "source plate" in info.value.message
     assert plate.read_bytes() == before
+
+
+# -- damaged and odd plates through whole renders --------------------------------------------------
+@settings(max_examples=100, deadline=None, derandomize=True,
+          suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+@given(changes=st.lists(st.tuples(st.integers(0, 1 << 20), st.integers(1, 255)), max_size=6),
+       cut=st.one_of(st.none(), st.floats(0, 1, exclude_max=True)))
+def test_a_damaged_frame_fails_alone_in_a_render(tmp_path_factory, changes, cut):
+    """One damaged frame (bytes flipped and/or cut short) in a three-frame convert: exit 0 (the damage
+    left a readable image) or 2 naming that file; the other frames are written; no temporary file.
+    tests/operators/test_io_fuzz.py runs the reader alone on thousands of damaged files."""
+    tmp_path = tmp_path_factory.mktemp("damaged")
+    src = sequence(tmp_path / "src", 3, np.float32)
+    bad = tmp_path / "src" / "sh.1002.exr"
+    data = bytearray(bad.read_bytes())
+    for pos, xor in changes:
+        data[pos % len(data)] ^= xor
+    if cut is not None:
+        data = data[: int(cut * len(data))]
+    bad.write_bytes(bytes(data))
+    out = tmp_path / "out"
+    rc, _, err = convert(src, f"{out}/o.%04d.exr")
+    assert rc in (0, 2) and "Traceback" not in err, err
+    written = sorted(p.name for p in out.iterdir())
+    if rc == 2:
+        assert str(bad) in err and "frame(s) 1002" in err
+        assert written == ["o.1001.exr", "o.1003.exr"]
+    else:
+        assert written == ["o.1001.exr", "o.1002.exr", "o.1003.exr"]
+    assert cut is None or rc == 2                       # a file cut short is never taken for an image
+    event(f"exit {rc}")
+
+
+@pytest.mark.parametrize("channels", [["Y"], ["A"], ["Z"], ["fwd.x"], ["R", "G"], ["Y", "RY", "BY"],
+                                      ["R", "G", "B"]])
+def test_plates_with_missing_or_odd_channels_through_retime(tmp_path, channels):
+    """Exit 0 with the plate's channels written, or 2 naming the node and field; never a traceback.
+    (One channel is matched as grey; two channels or luma/chroma layers have no R G B to match on.)"""
+    rng = np.random.default_rng(4)
+    src = tmp_path / "src"
+    src.mkdir()
+    for f in range(1001, 1004):
+        write_plate(src / f"p.{f}.exr", {c: rng.random((24, 32)).astype(np.float32) for c in channels})
+    rc, _, err = run_retime(f"{src}/p.%04d.exr", f"{tmp_path}/out/o.%04d.exr", "2")
+    assert rc in (0, 2) and "Traceback" not in err, err
+    if rc == 2:
+        assert "node 'vectors', field 'channels'" in err and "no R G B channels to match on" in err
+        assert len(channels) > 1
+    else:
+        assert sorted(raw_channels(tmp_path / "out" / "o.1002.exr")) == sorted(channels)
+
+
+def _limit_memory():
+    resource.setrlimit(resource.RLIMIT_AS, (3 << 30, resource.RLIM_INFINITY))
+
+
+@pytest.mark.parametrize("args, words", [
+    (["--set", "slowdown=1e9"], "(2000000001 frames), more than the 1000000 one render may span"),
+    (["--set", "slowdown=2", "--frames", "1-100000000000"], "spans 100000000000 frames"),
+])
+def test_an_absurd_frame_range_is_refused_before_listing_it(tmp_path, args, words):
+    """A slowdown of 1e9 on a three-frame plate asked for 2e9 output frames; listing them exhausted
+    memory (MemoryError and a traceback under a 4 GB limit, measured). Run under a 3 GiB address
+    space limit so a regression fails instead of hurting the machine."""
+    src = sequence(tmp_path / "src", 3, np.float32)
+    proc = subprocess.run([sys.executable, "-m", "graphcore", "run", str(GRAPHS / "retime.json"), "--set",
+                           f"src={src}", "--set", f"dst={tmp_path}/out/o.%04d.exr", *args, "-q"],
+                          capture_output=True, text=True, timeout=300, preexec_fn=_limit_memory)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr, proc.stderr
+    assert words in proc.stderr
+    assert not (tmp_path / "out").exists()
