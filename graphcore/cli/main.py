@@ -223,6 +223,22 @@ def _group_sources(paths: list[str]) -> list[str]:
     return out + lone
 
 
+def _check_provenance(record: dict, file: str) -> None:
+    """Refuse a provenance record whose node list or source list has the wrong shape (a damaged or
+    hand-edited header), naming the field, before the text report walks it."""
+    nodes = record.get("nodes")
+    if nodes is not None and not (isinstance(nodes, list) and all(
+            isinstance(n, dict) and isinstance(n.get("params"), (dict, type(None))) for n in nodes)):
+        raise UsageError("the provenance header is damaged: 'nodes' is not a list of nodes with their "
+                         "params", file=file, field="midframe.provenance.nodes",
+                         fix="see the raw record with --json, or render the file again")
+    sources = record.get("sources")
+    if sources is not None and not (isinstance(sources, list) and all(isinstance(p, str) for p in sources)):
+        raise UsageError("the provenance header is damaged: 'sources' is not a list of file paths",
+                         file=file, field="midframe.provenance.sources",
+                         fix="see the raw record with --json, or render the file again")
+
+
 def cmd_explain(args: argparse.Namespace) -> int:
     import os
 
@@ -237,6 +253,7 @@ def cmd_explain(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(record, indent=2, sort_keys=True))
         return EXIT_OK
+    _check_provenance(record, args.file)
     from graphcore.registry import default_registry
 
     reg = default_registry()

@@ -2,10 +2,9 @@
 validation fail other than with errors naming the node and the field.
 
 Mutated copies of the shipped templates and hypothesis-generated documents each give exit 0 (still
-valid) or 2 (a named error), never 1 and never a traceback (1000 examples per target). For every
-registered operator, generated values for its params fields (wrong types, out of range, NaN and
-infinities, huge numbers and strings, nested junk) give a valid graph or ``GraphErrors`` whose every
-entry names the file, the node, the field and a fix (1000 examples per operator).
+valid) or 2 (a named error), never 1 and never a traceback (1000 examples per target); so do
+generated show defaults files with --set values, and `midframe explain` on files whose provenance
+header holds any JSON. Params of every operator are fuzzed in tests/graphcore/test_params_fuzz.py.
 """
 
 from __future__ import annotations
@@ -181,4 +180,63 @@ def test_mutated_templates_never_traceback(tmp_path, template, rng, steps, cut, 
     if rc == 2:
         # the graph file, the missing plate or the argument is named
         assert str(p) in output or "p.%04d.exr" in output or "--set" in output, output
+    event(f"exit {rc}")
+
+
+# -- show defaults files and --set values ------------------------------------------------------------
+@FUZZ
+@given(vars_=json_values, params=st.one_of(json_values, st.dictionaries(
+           st.sampled_from(["read", "write", "retime", "nope"]), st.dictionaries(
+               st.sampled_from(["path", "nonfinite", "compression", "slowdown", "zz"]), json_values, max_size=2),
+           max_size=2)),
+       version=st.sampled_from([1, 2, "1", None]),
+       sets=st.lists(st.text(max_size=12) | st.sampled_from(["slowdown=nan", "src=${dst}", "dst==", "=1"]),
+                     max_size=3))
+def test_generated_defaults_files_and_sets_never_traceback(tmp_path, vars_, params, version, sets):
+    """A show defaults file and --set values layered under graphs/retime.json: exit 0 or 2."""
+    show = tmp_path / "show.json"
+    show.write_text(json.dumps({"schema": "midframe.defaults", "version": version, "vars": vars_,
+                                "params": params}))
+    args = ["check", str(GRAPHS / "retime.json"), "--defaults", str(show)]
+    args += [f"--set={item}" for item in sets]      # the = form passes any text, even '-x'
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        rc = main(args)
+    text = err.getvalue() + out.getvalue()
+    assert rc in (0, 2) and "Traceback" not in text, text
+    event(f"exit {rc}")
+
+
+# -- provenance headers (midframe explain) ------------------------------------------------------------
+record_values = st.recursive(
+    st.none() | st.booleans() | st.integers(-3, 3) | st.floats(allow_nan=False, allow_infinity=False)
+    | st.text(max_size=8) | st.sampled_from(["read", "write", "p.1001.exr", "/a/b.0001.exr", "0", "1"]),
+    lambda children: st.lists(children, max_size=3) | st.dictionaries(
+        st.sampled_from(["op", "id", "params", "path", "nodes", "sources", "frame", "view", "key", "tool"]),
+        children, max_size=4),
+    max_leaves=16)
+
+
+@FUZZ
+@given(record=st.one_of(record_values, st.dictionaries(st.sampled_from(
+    ["nodes", "sources", "frame", "view", "key", "tool", "tool_version", "graph_file", "graph_hash", "node"]),
+    record_values, max_size=6)), raw=st.booleans())
+def test_generated_provenance_headers_never_traceback(tmp_path, record, raw):
+    """`midframe explain` on a file whose provenance header holds any JSON: exit 0 or 2. Before this
+    test a list of plain values under 'nodes' or a number under 'sources' gave a traceback."""
+    import numpy as np
+
+    from graphcore.image import Image
+    from operators.io.exr import PROVENANCE_ATTRIBUTE, write_exr
+
+    path = tmp_path / "p.exr"
+    write_exr(str(path), Image(np.zeros((2, 2, 3), np.float32), ("R", "G", "B")),
+              attributes={PROVENANCE_ATTRIBUTE: json.dumps(record)})
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        rc = main(["explain", str(path)] + (["--json"] if raw else []))
+    text = err.getvalue() + out.getvalue()
+    assert rc in (0, 2) and "Traceback" not in text, text
+    if rc == 2:
+        assert str(path) in text
     event(f"exit {rc}")
