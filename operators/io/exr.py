@@ -49,7 +49,7 @@ import numpy as np
 import OpenEXR
 
 from graphcore.errors import OpError
-from graphcore.image import Image
+from graphcore.image import LIMIT_VARIABLE, MAX_IMAGE_BYTES, Image, max_image_bytes
 from operators.io._common import write_failure_fix
 
 __all__ = ["COMPRESSIONS", "PIXEL_TYPES", "PROVENANCE_ATTRIBUTE", "MAX_IMAGE_BYTES", "available_compressions",
@@ -83,13 +83,6 @@ _STRUCTURAL = frozenset({"channels", "compression", "dataWindow", "displayWindow
 _UINT_MAX = 4294967295.0
 _INT32 = (-2**31, 2**31 - 1)
 
-#: Largest image :func:`read_exr` decodes, in bytes of float32 planes (width x height x channels x 4,
-#: every part together): 4 GiB, e.g. 16384 x 16384 RGBA or 8K with 30 layers. A damaged header can
-#: declare any size and the decoder would fill that much memory before noticing the data is not
-#: there, so larger declarations are refused before anything is allocated. The environment variable
-#: ``MIDFRAME_MAX_IMAGE_MB`` sets another limit (in MiB) for files that really are that large.
-MAX_IMAGE_BYTES = 4 << 30
-_LIMIT_VARIABLE = "MIDFRAME_MAX_IMAGE_MB"
 
 
 def available_compressions() -> list[str]:
@@ -292,17 +285,11 @@ def _open(path: str, *, header_only: bool, num_threads: int) -> Any:
                       fix="the file is damaged or truncated; render or copy it again") from None
 
 
-def _image_limit() -> int:
-    text = os.environ.get(_LIMIT_VARIABLE, "").strip()
-    try:
-        return int(float(text) * (1 << 20)) if text else MAX_IMAGE_BYTES
-    except ValueError:
-        return MAX_IMAGE_BYTES
-
-
 def _check_declared_size(head: Any, n_parts: int, path: str) -> None:
-    """Refuse a header whose data windows are empty or larger than :data:`MAX_IMAGE_BYTES` (or
-    ``MIDFRAME_MAX_IMAGE_MB``) as float32, before any pixel memory is allocated."""
+    """Refuse a header whose data windows are empty or larger than
+    :data:`graphcore.image.MAX_IMAGE_BYTES` (or ``MIDFRAME_MAX_IMAGE_MB``) as float32, before any
+    pixel memory is allocated: the decoder would otherwise fill that much memory before noticing
+    that a damaged file does not hold the data."""
     total = 0
     for p in range(n_parts):
         header = head.header(p)
@@ -314,14 +301,14 @@ def _check_declared_size(head: Any, n_parts: int, path: str) -> None:
                           fix="the file is damaged or was written empty; render or copy it again")
         channels = len(header.get("channels") or ()) or 1
         total += width * height * channels * 4
-    limit = _image_limit()
+    limit = max_image_bytes()
     if total > limit:
         raise OpError(f"the header declares {total / (1 << 30):.1f} GiB of pixels (data window "
                       f"{width} x {height}, {channels} channel(s)), more than the "
                       f"{limit / (1 << 30):.1f} GiB midframe decodes in one image", file=path,
                       fix=f"the header is probably damaged: render or copy the file again; if the "
                           f"image really is that large, set the environment variable "
-                          f"{_LIMIT_VARIABLE} to a larger size in MiB")
+                          f"{LIMIT_VARIABLE} to a larger size in MiB")
 
 
 def read_header(path: str, *, num_threads: int = 0) -> dict[str, Any]:
@@ -352,8 +339,8 @@ def read_exr(path: str, *, num_threads: int = 0) -> Image:
     OpError
         ``file=path``: missing, not EXR, truncated or corrupt, deep data, subsampled channels,
         or a multi-part file whose parts differ in data window or repeat channel names; a header
-        declaring an empty image or one larger than :data:`MAX_IMAGE_BYTES` (refused before any
-        pixel memory is allocated).
+        declaring an empty image or one larger than :func:`graphcore.image.max_image_bytes`
+        (refused before any pixel memory is allocated).
 
     Notes
     -----

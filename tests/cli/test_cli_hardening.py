@@ -14,6 +14,8 @@
   replace it.
 - Damaged frames inside whole renders (100 examples), plates with missing or odd channels through
   ``retime.json``, and absurd frame ranges (refused before the frame list is built).
+- Sizes too large for memory: a resize beyond the image limit is refused before allocating; a
+  MemoryError inside an operator is an input error naming the node, with what to do.
 """
 
 from __future__ import annotations
@@ -489,3 +491,42 @@ def test_an_absurd_frame_range_is_refused_before_listing_it(tmp_path, args, word
     assert proc.returncode == 2 and "Traceback" not in proc.stderr, proc.stderr
     assert words in proc.stderr
     assert not (tmp_path / "out").exists()
+
+
+# -- sizes too large for memory ------------------------------------------------------------------------
+def _with_resize(tmp_path, src: str, params: dict):
+    doc = json.loads((GRAPHS / "convert.json").read_text())
+    doc["nodes"]["big"] = {"op": "resize", "params": params, "inputs": {"image": "plate"}}
+    doc["nodes"]["out"]["inputs"]["image"] = "big"
+    return write_json(tmp_path / "g.json", doc)
+
+
+@pytest.mark.parametrize("params, field", [({"width": 65536, "height": 65536}, "width"), ({"scale": 1000}, "scale")])
+def test_a_resize_beyond_memory_is_refused_before_allocating(tmp_path, params, field):
+    """64 x 48 with five channels to 65536 x 65536 needs 160 GiB (80 GiB resampled, 80 GiB placed):
+    refused by node and field. Under a 3 GiB address-space limit, so a regression fails instead of
+    filling the machine's memory."""
+    src = sequence(tmp_path / "src", 1, np.float32)
+    graph = _with_resize(tmp_path, src, params)
+    proc = subprocess.run([sys.executable, "-m", "graphcore", "run", str(graph), "--set", f"src={src}", "--set",
+                           f"dst={tmp_path}/out/o.%04d.exr", "-q"], capture_output=True, text=True, timeout=300,
+                          preexec_fn=_limit_memory)
+    assert proc.returncode == 2 and "Traceback" not in proc.stderr, proc.stderr
+    assert f"node 'big', field '{field}'" in proc.stderr and "GiB midframe allows for one image" in proc.stderr
+    assert "MIDFRAME_MAX_IMAGE_MB" in proc.stderr
+    assert not (tmp_path / "out").exists()
+
+
+def test_running_out_of_memory_in_an_operator_is_an_input_error(tmp_path, monkeypatch):
+    """A MemoryError inside compute (here raised by the resampler) names the node and what to do."""
+    import operators.transform.resize as resize_module
+
+    def no_memory(*args, **kw):
+        raise MemoryError("Unable to allocate 12.0 GiB for an array")
+
+    monkeypatch.setattr(resize_module, "_resample", no_memory)
+    src = sequence(tmp_path / "src", 2, np.float32)
+    graph = _with_resize(tmp_path, src, {"width": 32, "height": 24})
+    rc, _, err = cli("run", str(graph), "--set", f"src={src}", "--set", f"dst={tmp_path}/out/o.%04d.exr", "-q")
+    assert rc == 2 and "Traceback" not in err
+    assert f"{graph}, node 'big': ran out of memory at frame 1001" in err and "fewer --jobs" in err
