@@ -530,3 +530,29 @@ def test_running_out_of_memory_in_an_operator_is_an_input_error(tmp_path, monkey
     rc, _, err = cli("run", str(graph), "--set", f"src={src}", "--set", f"dst={tmp_path}/out/o.%04d.exr", "-q")
     assert rc == 2 and "Traceback" not in err
     assert f"{graph}, node 'big': ran out of memory at frame 1001" in err and "fewer --jobs" in err
+
+
+# -- midframe vectors: the same rules ------------------------------------------------------------------
+def test_vectors_command_treats_nonfinite_pixels_like_read(tmp_path):
+    from graphcore.image import Image
+    from operators.io.exr import write_exr
+
+    rng = np.random.default_rng(5)
+    for name, (nan, inf) in {"a": (9, 1), "b": (0, 2)}.items():
+        px = rng.random((32, 40, 3)).astype(np.float32)
+        px[3:6, 3:6, 0] = np.nan if nan else px[3:6, 3:6, 0]
+        px[10, 10:10 + inf, 1] = np.inf
+        write_exr(str(tmp_path / f"{name}.exr"), Image(px, ("R", "G", "B")), default_pixel_type="float")
+    proc = cli_proc("vectors", str(tmp_path / "a.exr"), str(tmp_path / "b.exr"), "--out", str(tmp_path / "v.exr"))
+    assert proc.returncode == 0, proc.stderr
+    assert f"{tmp_path}/a.exr: 10 NaN/infinite pixel value(s) in channels R, G replaced by 0" in proc.stderr
+    assert f"{tmp_path}/b.exr: 2 NaN/infinite pixel value(s) in channels G replaced by 0" in proc.stderr
+    assert all(np.isfinite(v).all() for v in raw_channels(tmp_path / "v.exr").values())
+
+
+def test_vectors_command_cannot_write_under_a_file(tmp_path):
+    src = sequence(tmp_path / "src", 2, np.float32)
+    (tmp_path / "taken").write_text("a file")
+    rc, _, err = cli("vectors", src % 1001, src % 1002, "--out", f"{tmp_path}/taken/v.exr")
+    assert rc == 2 and "Traceback" not in err
+    assert f"{tmp_path}/taken/v.exr, field '--out': cannot write the file" in err and "a file stands where" in err
