@@ -460,6 +460,18 @@ def cmd_ops(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _write_text(path: str, text: str) -> None:
+    """Write a command's --out file; a file-system error is an input error naming it."""
+    from operators.io._common import write_failure_fix
+
+    try:
+        with open(path, "w") as fh:
+            fh.write(text)
+    except OSError as e:
+        raise UsageError(f"cannot write the file: {e.strerror or e}", file=path, field="--out",
+                         fix=write_failure_fix(path, code=e.errno or 0)) from None
+
+
 def cmd_schema(args: argparse.Namespace) -> int:
     from graphcore.registry import default_registry
     from graphcore.schema.jsonschema import graph_json_schema
@@ -467,8 +479,7 @@ def cmd_schema(args: argparse.Namespace) -> int:
     reg = default_registry().builtin_only() if args.builtin else default_registry()
     text = json.dumps(graph_json_schema(reg), indent=2, sort_keys=True) + "\n"
     if args.out:
-        with open(args.out, "w") as fh:
-            fh.write(text)
+        _write_text(args.out, text)
     else:
         sys.stdout.write(text)
     return EXIT_OK
@@ -483,8 +494,7 @@ def cmd_graph(args: argparse.Namespace) -> int:
     dot = graph_dot(loaded.document, reg)
     if args.format == "dot":
         if args.out:
-            with open(args.out, "w") as fh:
-                fh.write(dot)
+            _write_text(args.out, dot)
         else:
             sys.stdout.write(dot)
         return EXIT_OK
@@ -496,7 +506,11 @@ def cmd_graph(args: argparse.Namespace) -> int:
     if not args.out:
         raise UsageError(f"--format {args.format} needs --out FILE", field="--out", fix="add --out graph."
                          + args.format)
-    subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), check=True)
+    proc = subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), capture_output=True)
+    if proc.returncode != 0:
+        raise UsageError(f"Graphviz's dot could not write the drawing: "
+                         f"{proc.stderr.decode(errors='replace').strip() or 'exit status ' + str(proc.returncode)}",
+                         file=args.out, field="--out", fix="check that the folder exists and is writable")
     return EXIT_OK
 
 

@@ -136,6 +136,7 @@ _WRITE_FAILURES = (
                                     "keeps the frames already finished"),
     (("EROFS", "EACCES", "EPERM"), "make {folder} writable, or write somewhere else"),
     (("EIO",), "check the disk or network share holding {folder}, then render again"),
+    (("ENOENT",), "create the folder {folder} first, or write somewhere else"),
     (("EEXIST", "ENOTDIR"), "a file stands where a folder of {folder} should be: move it, or write "
                             "somewhere else"),
 )

@@ -556,3 +556,14 @@ def test_vectors_command_cannot_write_under_a_file(tmp_path):
     rc, _, err = cli("vectors", src % 1001, src % 1002, "--out", f"{tmp_path}/taken/v.exr")
     assert rc == 2 and "Traceback" not in err
     assert f"{tmp_path}/taken/v.exr, field '--out': cannot write the file" in err and "a file stands where" in err
+
+
+@pytest.mark.parametrize("args, words", [
+    (["graph", str(GRAPHS / "over.json"), "--out", "{tmp}/taken/g.dot"], "a file stands where a folder"),
+    (["schema", "--out", "{tmp}/missing/s.json"], "create the folder {tmp}/missing first"),
+])
+def test_other_commands_cannot_write_their_out_file(tmp_path, args, words):
+    (tmp_path / "taken").write_text("a file")
+    rc, _, err = cli(*[a.format(tmp=tmp_path) for a in args])
+    assert rc == 2 and "Traceback" not in err
+    assert "field '--out': cannot write the file" in err and words.format(tmp=tmp_path) in err
