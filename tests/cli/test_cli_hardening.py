@@ -567,3 +567,32 @@ def test_other_commands_cannot_write_their_out_file(tmp_path, args, words):
     rc, _, err = cli(*[a.format(tmp=tmp_path) for a in args])
     assert rc == 2 and "Traceback" not in err
     assert "field '--out': cannot write the file" in err and words.format(tmp=tmp_path) in err
+
+
+def test_a_full_disk_under_the_cache_does_not_stop_the_render(tmp_path, monkeypatch, caplog):
+    """The disk cache only saves work: when storing an entry fails half way (the disk is full) the
+    render goes on with the same pixels, one warning names the cache folder, and no temporary or
+    partial entry is left behind."""
+    import errno
+
+    real_write_array = np.lib.format.write_array
+
+    def full(fh, array, *args, **kw):
+        fh.write(b"\x93NUMPY" + b"\0" * 64)
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    src = sequence(tmp_path / "src", 3, np.float32)
+    rc, _, err = run_retime(src, f"{tmp_path}/plain/o.%04d.exr", "2")
+    assert rc == 0, err
+    monkeypatch.setattr(np.lib.format, "write_array", full)
+    cache = tmp_path / "cache"
+    with caplog.at_level("WARNING"):
+        rc, _, err = run_retime(src, f"{tmp_path}/cached/o.%04d.exr", "2", "--cache", str(cache))
+    monkeypatch.setattr(np.lib.format, "write_array", real_write_array)
+    assert rc == 0, err
+    warnings = [r.getMessage() for r in caplog.records if "disk cache" in r.getMessage()]
+    assert len(warnings) == 1 and str(cache) in warnings[0] and "No space left on device" in warnings[0]
+    assert [p for p in cache.rglob("*") if p.is_file()] == []
+    for k in range(1001, 1006):
+        a, b = raw_channels(tmp_path / "plain" / f"o.{k}.exr"), raw_channels(tmp_path / "cached" / f"o.{k}.exr")
+        assert all(a[c].tobytes() == b[c].tobytes() for c in a)
