@@ -188,8 +188,13 @@ def _print_warnings(warnings) -> None:
 # -- commands --------------------------------------------------------------------------------------
 def cmd_check(args: argparse.Namespace) -> int:
     from graphcore.evaluate import Evaluator
-    from graphcore.execute.plan import (check_targets, make_tasks, output_frames, protected_paths,
-                                        unwritable_outputs)
+    from graphcore.execute.plan import (
+        check_targets,
+        make_tasks,
+        output_frames,
+        protected_paths,
+        unwritable_outputs,
+    )
     from graphcore.validate import load_graph
 
     reg = _registry(args.plugins)
@@ -506,7 +511,8 @@ def cmd_graph(args: argparse.Namespace) -> int:
     if not args.out:
         raise UsageError(f"--format {args.format} needs --out FILE", field="--out", fix="add --out graph."
                          + args.format)
-    proc = subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), capture_output=True)
+    proc = subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), capture_output=True,
+                          check=False)
     if proc.returncode != 0:
         raise UsageError(f"Graphviz's dot could not write the drawing: "
                          f"{proc.stderr.decode(errors='replace').strip() or 'exit status ' + str(proc.returncode)}",

@@ -86,8 +86,8 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
 
 
 def cmd_vectors(args: argparse.Namespace) -> int:
-    from operators.io.exr import PROVENANCE_ATTRIBUTE, write_exr
     from operators.io._common import write_failure_fix
+    from operators.io.exr import PROVENANCE_ATTRIBUTE, write_exr
     from operators.io.read import read_finite
     from operators.io.write import atomic_write
 

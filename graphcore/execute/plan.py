@@ -245,7 +245,7 @@ def unwritable_outputs(ev: Evaluator, tasks: list[Task]) -> list[InputError]:
             if existing in seen:
                 continue
             seen.add(existing)
-            where = dict(file=existing, node_id=sink, field=f"nodes.{sink}.params.path")
+            where = {"file": existing, "node_id": sink, "field": f"nodes.{sink}.params.path"}
             if not os.path.isdir(existing):
                 problems.append(InputError(f"cannot write into {folder}: {existing} is a file, not a folder",
                                            fix="write somewhere else, or move that file away", **where))

@@ -131,14 +131,14 @@ def check_colour_rule(transfer: str, colorspace: str | None, ocio_config: str | 
 
 #: File-system errors a write can meet: (errno names, what to do). ``{folder}`` is filled in.
 _WRITE_FAILURES = (
-    (("ENOSPC", "EDQUOT", "EFBIG"), "free space on the disk holding {folder} (or raise the quota or "
-                                    "file-size limit), then render again: `midframe run --resume` "
-                                    "keeps the frames already finished"),
+    (("ENOSPC", "EDQUOT", "EFBIG"), ("free space on the disk holding {folder} (or raise the quota or "
+                                     "file-size limit), then render again: `midframe run --resume` "
+                                     "keeps the frames already finished")),
     (("EROFS", "EACCES", "EPERM"), "make {folder} writable, or write somewhere else"),
     (("EIO",), "check the disk or network share holding {folder}, then render again"),
     (("ENOENT",), "create the folder {folder} first, or write somewhere else"),
-    (("EEXIST", "ENOTDIR"), "a file stands where a folder of {folder} should be: move it, or write "
-                            "somewhere else"),
+    (("EEXIST", "ENOTDIR"), ("a file stands where a folder of {folder} should be: move it, or write "
+                             "somewhere else")),
 )
 
 

@@ -78,7 +78,7 @@ def _mutate(doc, rng: random.Random):
 
 def _mutate_param(doc, rng: random.Random):
     """Set one param of one node (a field its operator declares, or any name) to a junk value."""
-    from graphcore.registry import default_registry
+    from graphcore.registry import PluginError, default_registry
 
     doc = copy.deepcopy(doc)
     nodes = doc.get("nodes")
@@ -89,7 +89,7 @@ def _mutate_param(doc, rng: random.Random):
         return doc
     try:
         fields = sorted(default_registry().get(node.get("op")).params.model_fields) or ["x"]
-    except Exception:            # an unknown or mutated op name: any name will do
+    except (KeyError, TypeError, PluginError):     # an unknown or mutated op name: any name will do
         fields = ["path", "x"]
     params = node.setdefault("params", {})
     if isinstance(params, dict):
