@@ -61,11 +61,16 @@ def _value(op_name: str, field: str):
     return st.one_of(junk, st.sampled_from(known)) if known else junk
 
 
+#: Params that make each operator valid on their own; generated values replace some of them.
+VALID_BASE = {"read": {"path": "plate.%04d.exr"}, "write": {"path": "out.%04d.exr"}, "resize": {"scale": 0.5}}
+
+
 @st.composite
 def params_for(draw, op_name: str):
     fields = list(REGISTRY.get(op_name).params.model_fields)
     chosen = draw(st.lists(st.sampled_from(fields), min_size=1, max_size=3, unique=True)) if fields else []
-    params = {f: draw(_value(op_name, f)) for f in chosen}
+    params = dict(VALID_BASE.get(op_name, {}))
+    params.update({f: draw(_value(op_name, f)) for f in chosen})
     if draw(st.booleans()) and draw(st.booleans()):
         params[draw(st.sampled_from(["unknown", "pathh", "Path", "__class__", ""]))] = draw(scalars)
     return params
@@ -74,7 +79,7 @@ def params_for(draw, op_name: str):
 def _graph(op_name: str, params: dict) -> dict:
     op = REGISTRY.get(op_name)
     node = {"op": op_name, "params": params}
-    inputs = {p.name: "src" for p in op.inputs if not p.optional}
+    inputs = {p.name: "src" for p in op.inputs}      # every port, optional ones too
     if inputs:
         node["inputs"] = inputs
     return {"schema": "midframe.graph", "version": 2,
