@@ -55,7 +55,8 @@ def _planes(h: int, w: int, names, dtype, seed: int = 1) -> dict[str, np.ndarray
 
 @pytest.fixture(scope="module")
 def bases(tmp_path_factory) -> dict[str, bytes]:
-    """Small valid files of each storage kind, as bytes."""
+    """Small valid files of each storage kind (scanline and tiled; half, float and uint; four
+    compressions; two parts), as bytes."""
     d = tmp_path_factory.mktemp("bases")
     rgba = ("R", "G", "B", "A")
     out = {
@@ -68,6 +69,12 @@ def bases(tmp_path_factory) -> dict[str, bytes]:
                                        "id": np.arange(24, dtype=np.uint32).reshape(4, 6)},
                          compression=OpenEXR.RLE_COMPRESSION),
     }
+    h = {"compression": OpenEXR.ZIP_COMPRESSION, "type": OpenEXR.scanlineimage}
+    parts = [OpenEXR.Part(dict(h), _planes(4, 5, ("R", "G", "B"), np.float16), name="left"),
+             OpenEXR.Part(dict(h), _planes(4, 5, ("fwd.x", "fwd.y"), np.float32, seed=2), name="right")]
+    with OpenEXR.File(parts) as f:
+        f.write(str(d / "e.exr"))
+    out["multipart"] = (d / "e.exr").read_bytes()
     for name, bgr in (("png8", np.uint8), ("png16", np.uint16), ("tif8", np.uint8), ("tif16", np.uint16)):
         ext = ".png" if name.startswith("png") else ".tif"
         img = (np.random.default_rng(2).random((7, 5, 4)) * np.iinfo(bgr).max).astype(bgr)
@@ -76,7 +83,7 @@ def bases(tmp_path_factory) -> dict[str, bytes]:
     return out
 
 
-EXR_BASES = ("zip-half", "none-float-layers", "piz-tiled", "rle-uint")
+EXR_BASES = ("zip-half", "none-float-layers", "piz-tiled", "rle-uint", "multipart")
 RASTER_BASES = ("png8", "png16", "tif8", "tif16")
 
 
