@@ -150,13 +150,15 @@ def _limit_file_size():
     resource.setrlimit(resource.RLIMIT_FSIZE, (4096, resource.RLIM_INFINITY))
 
 
-def test_a_real_write_failure_in_the_library_is_an_input_error(tmp_path):
-    """No simulation: the process may not write files over 4 KiB, so the OpenEXR library itself
-    fails part way through each 48 x 64 float frame (about 60 KB)."""
+@pytest.mark.parametrize("jobs", ["1", "2"])
+def test_a_real_write_failure_in_the_library_is_an_input_error(tmp_path, jobs):
+    """No simulation: the process (and its workers) may not write files over 4 KiB, so the OpenEXR
+    library itself fails part way through each 48 x 64 float frame (about 60 KB)."""
     src = sequence(tmp_path / "src", 2, np.float32)
     out = tmp_path / "out"
     proc = subprocess.run([sys.executable, "-m", "graphcore", "run", str(GRAPHS / "convert.json"), "--set",
-                           f"src={src}", "--set", f"dst={out}/o.%04d.exr", "-q"], capture_output=True, text=True,
+                           f"src={src}", "--set", f"dst={out}/o.%04d.exr", "-q", "--jobs", jobs],
+                          capture_output=True, text=True,
                           timeout=300, preexec_fn=_limit_file_size, cwd=tmp_path, check=False)
     assert proc.returncode == 2 and "Traceback" not in proc.stderr, proc.stderr
     for k in (1001, 1002):
