@@ -268,6 +268,7 @@ class Cache:
     def __init__(self, memory: MemoryCache | None = None, disk: DiskCache | None = None) -> None:
         self.memory = memory if memory is not None else MemoryCache()
         self.disk = disk
+        self.disk_write_error: str | None = None   # set once storing on disk failed (e.g. disk full)
 
     def get(self, key: str) -> Image | None:
         img = self.memory.get(key)
@@ -280,6 +281,15 @@ class Cache:
         return img
 
     def put(self, key: str, image: Image, *, persist: bool = True) -> None:
+        """Store in memory and, with ``persist``, on disk. The disk tier only saves work: when
+        storing there fails (a full disk, lost permission) the render goes on, the failure is
+        logged once as a warning, and this process stores nothing more on disk."""
         self.memory.put(key, image)
-        if persist and self.disk is not None:
-            self.disk.put(key, image)
+        if persist and self.disk is not None and self.disk_write_error is None:
+            try:
+                self.disk.put(key, image)
+            except OSError as e:
+                self.disk_write_error = e.strerror or str(e)
+                log.warning("cannot store results in the disk cache %s: %s; rendering goes on without "
+                            "storing more there (free space or fix its permissions for later runs)",
+                            self.disk.root, self.disk_write_error)

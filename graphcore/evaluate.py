@@ -296,6 +296,11 @@ class Evaluator:
             raise self._fill(exc, nid) from None
         except MidframeError:
             raise
+        except MemoryError as exc:       # a size asked for (or a machine) too big, not a bug: say what to do
+            raise self._fill(OpError(f"ran out of memory at {sample}: {exc}", fix=(
+                "check the image sizes this node makes or is given (e.g. a resize's width and height); "
+                "render with fewer --jobs or a smaller --memory, or on a machine with more memory")),
+                nid) from None
         except Exception as exc:
             raise NodeFailure(f"node '{nid}' ({op.name}) failed at {sample}: {type(exc).__name__}: {exc}",
                               nid) from exc

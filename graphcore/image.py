@@ -14,7 +14,25 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["Image", "COLOR", "ALPHA"]
+__all__ = ["Image", "COLOR", "ALPHA", "MAX_IMAGE_BYTES", "LIMIT_VARIABLE", "max_image_bytes"]
+
+#: Largest image midframe makes or reads, in bytes of float32 planes (width x height x channels x 4):
+#: 4 GiB, e.g. 16384 x 16384 RGBA or 8K with 30 layers. A damaged file header or a mistaken size can
+#: ask for any amount; larger requests are refused before anything is allocated. The environment
+#: variable ``MIDFRAME_MAX_IMAGE_MB`` sets another limit (in MiB) where images really are that large.
+MAX_IMAGE_BYTES = 4 << 30
+LIMIT_VARIABLE = "MIDFRAME_MAX_IMAGE_MB"
+
+
+def max_image_bytes() -> int:
+    """:data:`MAX_IMAGE_BYTES`, or ``MIDFRAME_MAX_IMAGE_MB`` MiB when that variable holds a number."""
+    import os
+
+    text = os.environ.get(LIMIT_VARIABLE, "").strip()
+    try:
+        return int(float(text) * (1 << 20)) if text else MAX_IMAGE_BYTES
+    except ValueError:
+        return MAX_IMAGE_BYTES
 
 COLOR = ("R", "G", "B")
 ALPHA = "A"

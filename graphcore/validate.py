@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import difflib
 import json
+import math
 import os
 import re
 from collections.abc import Iterable, Mapping
@@ -300,6 +301,11 @@ def load_graph(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iter
         except (ValueError, TypeError) as exc:
             errors.append(GraphError(f"params rejected: {exc}", file=file, node_id=nid, field=f"{base}.params",
                                      fix=f"see `midframe ops {op.name}`"))
+        if params is not None:
+            for where, value in _nonfinite(params.model_dump(), f"{base}.params"):
+                errors.append(GraphError(f"{value} is not a finite number", file=file, node_id=nid, field=where,
+                                         fix="write a finite number (a large one such as 1e9 where you mean "
+                                             "'no limit')"))
         port_names = [p.name for p in op.inputs]
         for port, src in ns.inputs.items():
             if op.port(port) is None:
@@ -357,6 +363,20 @@ def load_graph(source: str | os.PathLike[str] | Mapping[str, Any], *, sets: Iter
     graph = Graph(nodes=nodes, file=file, doc=spec.doc, variables=values,
                   source={"schema": SCHEMA_LABEL, "version": CURRENT_VERSION, "nodes": resolved_doc})
     return Loaded(graph, warnings, written, doc)
+
+
+def _nonfinite(value: Any, path: str) -> Iterable[tuple[str, float]]:
+    """(JSON path, value) of every NaN or infinite float in a validated params dump: a number in a
+    file such as 1e999 parses as infinity, and a string such as "inf" coerces to one."""
+    if isinstance(value, float):
+        if not math.isfinite(value):
+            yield path, value
+    elif isinstance(value, dict):
+        for k, v in value.items():
+            yield from _nonfinite(v, f"{path}.{k}")
+    elif isinstance(value, (list, tuple)):
+        for i, v in enumerate(value):
+            yield from _nonfinite(v, f"{path}[{i}]")
 
 
 def _has_placeholder(value: Any) -> bool:

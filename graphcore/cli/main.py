@@ -215,6 +215,7 @@ def cmd_check(args: argparse.Namespace) -> int:
         make_tasks,
         output_frames,
         protected_paths,
+        unwritable_outputs,
     )
     from graphcore.validate import load_graph
 
@@ -229,6 +230,7 @@ def cmd_check(args: argparse.Namespace) -> int:
     frames = output_frames(ev, None) if ev.sinks() else []
     tasks = make_tasks(ev, frames)
     check_targets(ev, tasks, protected_paths(ev))
+    _print_warnings(unwritable_outputs(ev, tasks))   # a farm node may have other rights: warn only
     span = f"frames {frames[0]}-{frames[-1]}" if frames else "no frames"
     print(f"{args.graph}: valid; {len(loaded.graph.nodes)} nodes, {len(ev.sinks())} outputs, {span}")
     return EXIT_OK
@@ -318,6 +320,22 @@ def cmd_assess(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _check_provenance(record: dict, file: str) -> None:
+    """Refuse a provenance record whose node list or source list has the wrong shape (a damaged or
+    hand-edited header), naming the field, before the text report walks it."""
+    nodes = record.get("nodes")
+    if nodes is not None and not (isinstance(nodes, list) and all(
+            isinstance(n, dict) and isinstance(n.get("params"), (dict, type(None))) for n in nodes)):
+        raise UsageError("the provenance header is damaged: 'nodes' is not a list of nodes with their "
+                         "params", file=file, field="midframe.provenance.nodes",
+                         fix="see the raw record with --json, or render the file again")
+    sources = record.get("sources")
+    if sources is not None and not (isinstance(sources, list) and all(isinstance(p, str) for p in sources)):
+        raise UsageError("the provenance header is damaged: 'sources' is not a list of file paths",
+                         file=file, field="midframe.provenance.sources",
+                         fix="see the raw record with --json, or render the file again")
+
+
 def cmd_explain(args: argparse.Namespace) -> int:
     import os
 
@@ -332,6 +350,7 @@ def cmd_explain(args: argparse.Namespace) -> int:
     if args.json:
         print(json.dumps(record, indent=2, sort_keys=True))
         return EXIT_OK
+    _check_provenance(record, args.file)
     from graphcore.registry import default_registry
 
     reg = default_registry()
@@ -548,6 +567,18 @@ def cmd_ops(args: argparse.Namespace) -> int:
     return EXIT_OK
 
 
+def _write_text(path: str, text: str) -> None:
+    """Write a command's --out file; a file-system error is an input error naming it."""
+    from operators.io._common import write_failure_fix
+
+    try:
+        with open(path, "w") as fh:
+            fh.write(text)
+    except OSError as e:
+        raise UsageError(f"cannot write the file: {e.strerror or e}", file=path, field="--out",
+                         fix=write_failure_fix(path, code=e.errno or 0)) from None
+
+
 def cmd_schema(args: argparse.Namespace) -> int:
     from graphcore.registry import default_registry
     from graphcore.schema.jsonschema import graph_json_schema
@@ -555,8 +586,7 @@ def cmd_schema(args: argparse.Namespace) -> int:
     reg = default_registry().builtin_only() if args.builtin else default_registry()
     text = json.dumps(graph_json_schema(reg), indent=2, sort_keys=True) + "\n"
     if args.out:
-        with open(args.out, "w") as fh:
-            fh.write(text)
+        _write_text(args.out, text)
     else:
         sys.stdout.write(text)
     return EXIT_OK
@@ -571,8 +601,7 @@ def cmd_graph(args: argparse.Namespace) -> int:
     dot = graph_dot(loaded.document, reg)
     if args.format == "dot":
         if args.out:
-            with open(args.out, "w") as fh:
-                fh.write(dot)
+            _write_text(args.out, dot)
         else:
             sys.stdout.write(dot)
         return EXIT_OK
@@ -584,7 +613,12 @@ def cmd_graph(args: argparse.Namespace) -> int:
     if not args.out:
         raise UsageError(f"--format {args.format} needs --out FILE", field="--out", fix="add --out graph."
                          + args.format)
-    subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), check=True)
+    proc = subprocess.run([exe, f"-T{args.format}", "-o", args.out], input=dot.encode(), capture_output=True,
+                          check=False)
+    if proc.returncode != 0:
+        raise UsageError(f"Graphviz's dot could not write the drawing: "
+                         f"{proc.stderr.decode(errors='replace').strip() or 'exit status ' + str(proc.returncode)}",
+                         file=args.out, field="--out", fix="check that the folder exists and is writable")
     return EXIT_OK
 
 

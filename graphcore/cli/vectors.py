@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import logging
 import os
 import sys
 import time
@@ -22,10 +23,12 @@ from concurrent.futures import ThreadPoolExecutor
 
 
 from graphcore import __version__
-from graphcore.errors import InputError
+from graphcore.errors import InputError, OpError
 from graphcore.image import Image
 
 __all__ = ["add_parser", "cmd_vectors", "pair_vectors"]
+
+log = logging.getLogger("midframe")
 
 
 def add_parser(sub) -> None:
@@ -83,8 +86,9 @@ def pair_vectors(first: Image, second: Image, *, quality: str = "standard", engi
 
 
 def cmd_vectors(args: argparse.Namespace) -> int:
+    from operators.io._common import write_failure_fix
     from operators.io.exr import PROVENANCE_ATTRIBUTE, write_exr
-    from operators.io.read import read_file
+    from operators.io.read import read_finite
     from operators.io.write import atomic_write
 
     out = os.path.abspath(args.out)
@@ -96,7 +100,10 @@ def cmd_vectors(args: argparse.Namespace) -> int:
             raise InputError("the output is one of the inputs", file=args.out, field="--out",
                              fix="write the vectors to a new file: midframe never replaces a source image")
     t0 = time.perf_counter()
-    first, second = read_file(args.first), read_file(args.second)
+    (first, warn_first), (second, warn_second) = read_finite(args.first), read_finite(args.second)
+    for warning in (warn_first, warn_second):     # as the read operator does: 0 instead, and say so
+        if warning:
+            log.warning("%s", warning)
     if first.size != second.size:
         raise InputError(f"the images differ in size: {args.first} is {first.width}x{first.height}, "
                          f"{args.second} is {second.width}x{second.height}", file=args.second,
@@ -107,9 +114,16 @@ def cmd_vectors(args: argparse.Namespace) -> int:
               "sources": [os.path.realpath(args.first), os.path.realpath(args.second)],
               "params": {"quality": args.quality, "engine": args.engine, "search_range": args.search_range,
                          "prefilter": args.prefilter, "raw": args.raw}}
-    os.makedirs(os.path.dirname(out) or ".", exist_ok=True)
-    atomic_write(out, lambda tmp: write_exr(tmp, image, default_pixel_type="float", compression="zip",
-                                            attributes={PROVENANCE_ATTRIBUTE: json.dumps(record, sort_keys=True)}))
+    try:
+        os.makedirs(os.path.dirname(out) or ".", exist_ok=True)
+        atomic_write(out, lambda tmp: write_exr(tmp, image, default_pixel_type="float", compression="zip",
+                                                attributes={PROVENANCE_ATTRIBUTE: json.dumps(record, sort_keys=True)}))
+    except OpError as e:
+        e.file, e.field = args.out, "--out"      # name the output, not its temporary file
+        raise
+    except OSError as e:
+        raise InputError(f"cannot write the file: {e.strerror or e}", file=args.out, field="--out",
+                         fix=write_failure_fix(out, code=e.errno or 0)) from None
     seconds = time.perf_counter() - t0
     conf = image.channel("conf")
     print(f"midframe: vectors {first.width}x{first.height} written to {args.out} in {seconds:.2f} s; "

@@ -15,7 +15,7 @@ from graphcore.registry import FrameRange
 from graphcore.sample import Sample
 
 __all__ = ["Task", "FrameResult", "RunReport", "make_tasks", "sink_views", "split_complete", "split_chunks", "chunk_count", "output_frames", "protected_paths",
-           "check_targets", "render_task"]
+           "check_targets", "unwritable_outputs", "render_task"]
 
 
 @dataclass(frozen=True)
@@ -72,16 +72,38 @@ class RunReport:
         return 1 if any(r.status == "failure" for r in self.failed) else 2
 
 
+#: Most frames one render may span (a feature film at 24 fps is under 200 000): a larger range comes
+#: from a mistake such as a slowdown of 1e9, and listing it would exhaust memory.
+MAX_FRAMES = 1_000_000
+
+
 def output_frames(ev: Evaluator, frames: FrameRange | None) -> list[int]:
-    """Frames to render: ``frames`` when given, else the union of the sinks' frame ranges."""
+    """Frames to render: ``frames`` when given, else the union of the sinks' frame ranges.
+
+    Raises ``InputError`` for a range of more than :data:`MAX_FRAMES` frames."""
     if frames is not None:
+        if frames.last - frames.first + 1 > MAX_FRAMES:
+            raise InputError(f"--frames {frames.first}-{frames.last} spans {frames.last - frames.first + 1} "
+                             f"frames, more than the {MAX_FRAMES} one render may span", field="--frames",
+                             fix="render a shorter range (split it with `midframe chunks`)")
         return list(frames)
-    ranges = [r for r in (ev.frames(s) for s in ev.sinks()) if r is not None]
+    ranges = {s: r for s, r in ((s, ev.frames(s)) for s in ev.sinks()) if r is not None}
     if not ranges:
         raise InputError("cannot tell which frames to render: no sink has a file-backed input",
                          file=ev.graph.file, field="--frames", fix="pass --frames FIRST-LAST")
-    lo = min(r.first for r in ranges)
-    hi = max(r.last for r in ranges)
+    for sink, r in sorted(ranges.items()):
+        if r.last - r.first + 1 > MAX_FRAMES:
+            raise InputError(f"the output would span frames {r.first}-{r.last} ({r.last - r.first + 1} frames), "
+                             f"more than the {MAX_FRAMES} one render may span", file=ev.graph.file,
+                             node_id=sink, field=f"nodes.{sink}.inputs",
+                             fix="check the timing upstream of this node (a retime's slowdown or frame "
+                                 "rates), or pass --frames FIRST-LAST")
+    lo = min(r.first for r in ranges.values())
+    hi = max(r.last for r in ranges.values())
+    if hi - lo + 1 > MAX_FRAMES:
+        raise InputError(f"the outputs together span frames {lo}-{hi}, more than the {MAX_FRAMES} one render "
+                         "may span", file=ev.graph.file, field="nodes",
+                         fix="render each output with its own --frames range")
     return list(range(lo, hi + 1))
 
 
@@ -161,6 +183,7 @@ def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -
     frame."""
     seen: dict[str, str] = {}
     by_sink: dict[str, list] = {}
+    source_files = _file_ids(protected)
     per_view = {sink: sink_views(ev, sink) is not None for sink in {t.node_id for t in tasks}}
     for t in tasks:
         by_sink.setdefault(t.node_id, []).append((t.frame, t.view) if per_view[t.node_id] else t.frame)
@@ -174,11 +197,74 @@ def check_targets(ev: Evaluator, tasks: list[Task], protected: frozenset[str]) -
                 raise InputError(f"would overwrite source plate {path}", file=ev.graph.file, node_id=sink,
                                  field=f"nodes.{sink}.params.path",
                                  fix="write somewhere else: midframe never replaces a file the graph reads")
+            if source_files and _file_id(real) in source_files:
+                raise InputError(f"would overwrite source plate {path} (the same file as one the graph "
+                                 "reads, under another name: a hard link)", file=ev.graph.file,
+                                 node_id=sink, field=f"nodes.{sink}.params.path",
+                                 fix="write somewhere else: midframe never replaces a file the graph reads")
             if real in seen and seen[real] != sink:
                 raise InputError(f"writes {path}, which node '{seen[real]}' also writes", file=ev.graph.file,
                                  node_id=sink, field=f"nodes.{sink}.params.path",
                                  fix="give each write node its own path")
             seen[real] = sink
+
+
+def _file_id(path: str) -> tuple[int, int] | None:
+    try:
+        st = os.stat(path)
+    except OSError:
+        return None
+    return (st.st_dev, st.st_ino)
+
+
+def _file_ids(paths: Iterable[str]) -> set[tuple[int, int]]:
+    """(device, inode) of every existing file in ``paths``: the same file under any name."""
+    return {i for i in map(_file_id, paths) if i is not None}
+
+
+def unwritable_outputs(ev: Evaluator, tasks: list[Task]) -> list[InputError]:
+    """Output folders this process could not write into, one error per folder, found before
+    anything renders: for each folder a sink writes to, the nearest one that exists (missing ones
+    are created on write) must be a folder this process may create files in (``os.access``, which
+    also reports a read-only file system)."""
+    by_sink: dict[str, list] = {}
+    per_view = {sink: sink_views(ev, sink) is not None for sink in {t.node_id for t in tasks}}
+    for t in tasks:
+        by_sink.setdefault(t.node_id, []).append((t.frame, t.view) if per_view[t.node_id] else t.frame)
+    problems: list[InputError] = []
+    seen: set[str] = set()
+    for sink, frames in sorted(by_sink.items()):
+        op = ev.ops[sink]
+        if op.targets is None:
+            continue
+        folders = dict.fromkeys(os.path.dirname(os.path.abspath(p)) for p in op.targets(ev.graph.nodes[sink].params, frames))
+        for folder in folders:
+            existing = folder
+            while not os.path.lexists(existing) and os.path.dirname(existing) != existing:
+                existing = os.path.dirname(existing)
+            if existing in seen:
+                continue
+            seen.add(existing)
+            where = {"file": existing, "node_id": sink, "field": f"nodes.{sink}.params.path"}
+            if not os.path.isdir(existing):
+                problems.append(InputError(f"cannot write into {folder}: {existing} is a file, not a folder",
+                                           fix="write somewhere else, or move that file away", **where))
+            elif not os.access(existing, os.W_OK | os.X_OK):
+                read_only = _read_only_mount(existing)
+                problems.append(InputError(
+                    f"cannot write into the folder {existing}: "
+                    + ("its file system is mounted read-only" if read_only else "permission denied"),
+                    fix=("write to a writable disk" if read_only else
+                         "make the folder writable for this user (e.g. chmod u+w) or write somewhere else"),
+                    **where))
+    return problems
+
+
+def _read_only_mount(folder: str) -> bool:
+    try:
+        return bool(os.statvfs(folder).f_flag & os.ST_RDONLY)
+    except (OSError, AttributeError):
+        return False
 
 
 def split_complete(ev: Evaluator, tasks: list[Task]) -> tuple[list[Task], list[FrameResult]]:

@@ -12,7 +12,7 @@ from graphcore.cache import Cache, DiskCache, MemoryCache
 from graphcore.errors import GraphError, InputError
 from graphcore.evaluate import Evaluator
 from graphcore.execute.plan import (FrameResult, RunReport, check_targets, make_tasks, output_frames,
-                                    protected_paths, split_complete)
+                                    protected_paths, split_complete, unwritable_outputs)
 from graphcore.execute.pool import PoolExecutor
 from graphcore.execute.serial import SerialExecutor
 from graphcore.registry import FrameRange, Registry, default_registry
@@ -70,6 +70,10 @@ def render(source, *, sets: Iterable[str] = (), defaults: str | os.PathLike[str]
     ev.protected_paths = protected_paths(ev)
     tasks = make_tasks(ev, wanted)
     check_targets(ev, tasks, ev.protected_paths)
+    if not scheduler:            # Dask workers write from their own hosts, with their own rights
+        problems = unwritable_outputs(ev, tasks)
+        if problems:
+            raise problems[0]
     skipped: list[FrameResult] = []
     if resume:
         tasks, skipped = split_complete(ev, tasks)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import errno
 import os
 import re
 from fractions import Fraction
@@ -126,3 +127,33 @@ def check_colour_rule(transfer: str, colorspace: str | None, ocio_config: str | 
     if ocio_config is not None and colorspace is None:
         raise ValueError(f"ocio_config is set but no colorspace is named; name {what} in 'colorspace' "
                          "or remove ocio_config")
+
+
+#: File-system errors a write can meet: (errno names, what to do). ``{folder}`` is filled in.
+_WRITE_FAILURES = (
+    (("ENOSPC", "EDQUOT", "EFBIG"), ("free space on the disk holding {folder} (or raise the quota or "
+                                     "file-size limit), then render again: `midframe run --resume` "
+                                     "keeps the frames already finished")),
+    (("EROFS", "EACCES", "EPERM"), "make {folder} writable, or write somewhere else"),
+    (("EIO",), "check the disk or network share holding {folder}, then render again"),
+    (("ENOENT",), "create the folder {folder} first, or write somewhere else"),
+    (("EEXIST", "ENOTDIR"), ("a file stands where a folder of {folder} should be: move it, or write "
+                             "somewhere else")),
+)
+
+
+def write_failure_fix(path: str, *, code: int | None = None, message: str = "") -> str:
+    """What to do about a failed write of ``path``: by the error number ``code`` when known, else by
+    the system's description of it in ``message`` (the OpenEXR library reports file-system errors
+    only as text ending in e.g. "No space left on device")."""
+    folder = os.path.dirname(os.path.abspath(path))
+    for names, fix in _WRITE_FAILURES:
+        for name in names:
+            number = getattr(errno, name, None)
+            if number is None:
+                continue
+            if code == number or (code is None and os.strerror(number).lower() in message.lower()):
+                return fix.format(folder=folder)
+    if code is not None:
+        return f"check that {folder} is writable and has free space"
+    return "check the header attributes and channel names"

@@ -49,9 +49,10 @@ import numpy as np
 import OpenEXR
 
 from graphcore.errors import OpError
-from graphcore.image import Image
+from graphcore.image import LIMIT_VARIABLE, MAX_IMAGE_BYTES, Image, max_image_bytes
+from operators.io._common import write_failure_fix
 
-__all__ = ["COMPRESSIONS", "PIXEL_TYPES", "PROVENANCE_ATTRIBUTE", "available_compressions",
+__all__ = ["COMPRESSIONS", "PIXEL_TYPES", "PROVENANCE_ATTRIBUTE", "MAX_IMAGE_BYTES", "available_compressions",
            "read_exr", "write_exr", "read_provenance", "read_header",
            "attribute_to_meta", "attribute_from_meta", "ordered_channels"]
 
@@ -81,6 +82,7 @@ _STRUCTURAL = frozenset({"channels", "compression", "dataWindow", "displayWindow
                          "type", "tiles", "name", "version", "chunkCount", "maxSamplesPerPixel"})
 _UINT_MAX = 4294967295.0
 _INT32 = (-2**31, 2**31 - 1)
+
 
 
 def available_compressions() -> list[str]:
@@ -283,6 +285,32 @@ def _open(path: str, *, header_only: bool, num_threads: int) -> Any:
                       fix="the file is damaged or truncated; render or copy it again") from None
 
 
+def _check_declared_size(head: Any, n_parts: int, path: str) -> None:
+    """Refuse a header whose data windows are empty or larger than
+    :data:`graphcore.image.MAX_IMAGE_BYTES` (or ``MIDFRAME_MAX_IMAGE_MB``) as float32, before any
+    pixel memory is allocated: the decoder would otherwise fill that much memory before noticing
+    that a damaged file does not hold the data."""
+    total = 0
+    for p in range(n_parts):
+        header = head.header(p)
+        xmin, ymin, xmax, ymax = _window(header["dataWindow"])
+        width, height = xmax - xmin + 1, ymax - ymin + 1
+        if width <= 0 or height <= 0:
+            raise OpError(f"the header declares an empty image (data window {xmin},{ymin} to "
+                          f"{xmax},{ymax})", file=path,
+                          fix="the file is damaged or was written empty; render or copy it again")
+        channels = len(header.get("channels") or ()) or 1
+        total += width * height * channels * 4
+    limit = max_image_bytes()
+    if total > limit:
+        raise OpError(f"the header declares {total / (1 << 30):.1f} GiB of pixels (data window "
+                      f"{width} x {height}, {channels} channel(s)), more than the "
+                      f"{limit / (1 << 30):.1f} GiB midframe decodes in one image", file=path,
+                      fix=f"the header is probably damaged: render or copy the file again; if the "
+                          f"image really is that large, set the environment variable "
+                          f"{LIMIT_VARIABLE} to a larger size in MiB")
+
+
 def read_header(path: str, *, num_threads: int = 0) -> dict[str, Any]:
     """The first part's header as the bindings return it (values are OpenEXR/numpy objects)."""
     return dict(_open(path, header_only=True, num_threads=num_threads).header())
@@ -310,7 +338,9 @@ def read_exr(path: str, *, num_threads: int = 0) -> Image:
     ------
     OpError
         ``file=path``: missing, not EXR, truncated or corrupt, deep data, subsampled channels,
-        or a multi-part file whose parts differ in data window or repeat channel names.
+        or a multi-part file whose parts differ in data window or repeat channel names; a header
+        declaring an empty image or one larger than :func:`graphcore.image.max_image_bytes`
+        (refused before any pixel memory is allocated).
 
     Notes
     -----
@@ -319,6 +349,7 @@ def read_exr(path: str, *, num_threads: int = 0) -> Image:
     """
     head = _open(path, header_only=True, num_threads=num_threads)
     n_parts = len(head.parts)
+    _check_declared_size(head, n_parts, path)
     f = _open(path, header_only=False, num_threads=num_threads)
     if len(f.parts) != n_parts or n_parts == 0:
         raise OpError(f"truncated or corrupt OpenEXR file: {n_parts - len(f.parts)} of {n_parts} "
@@ -492,4 +523,5 @@ def write_exr(path: str, image: Image, *,
         OpenEXR.File(header, channels, num_threads=num_threads).write(path)
     except (RuntimeError, ValueError, TypeError) as e:
         raise OpError(f"OpenEXR could not write the file: {e}", file=path,
-                      fix="check the header attributes and channel names") from None
+                      fix=write_failure_fix(path, message=str(e))) from None
+

@@ -77,7 +77,15 @@ def read_raster(path: str, *, transfer: str = "auto") -> Image:
     if _ext(path) in _JPEG and not _jpeg_complete(path):
         raise OpError("truncated JPEG file (no end-of-image marker)", file=path,
                       fix="the file was only partly written; export or copy it again")
-    arr = cv2.imread(path, cv2.IMREAD_UNCHANGED)
+    try:
+        arr = cv2.imread(path, cv2.IMREAD_UNCHANGED)
+    except cv2.error as e:        # e.g. a header declaring more pixels than OpenCV decodes (2**30)
+        text = str(e).strip()
+        reason = ("the header declares more pixels than OpenCV decodes" if "MAX_IMAGE_PIXELS" in text
+                  else (text.splitlines() or ["decoder error"])[-1])
+        raise OpError(f"OpenCV refused the file: {reason}", file=path,
+                      fix="the file is damaged or larger than OpenCV reads (2**30 pixels); export "
+                          "or copy it again") from None
     if arr is None:
         raise OpError("OpenCV cannot decode this file (corrupt, truncated or not an image of its "
                       "extension's format)", file=path, fix="check the file; export or copy it again")

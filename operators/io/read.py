@@ -37,7 +37,7 @@ from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, c
                                   check_path_tokens, check_view_token, fill_view, split_view,
                                   extension, resolved)
 
-__all__ = ["READ", "ReadParams", "read_file"]
+__all__ = ["READ", "ReadParams", "read_file", "read_finite", "nonfinite_warning"]
 
 
 class ReadParams(BaseModel):
@@ -289,6 +289,26 @@ def read_file(path: str, *, transfer: str = "auto") -> Image:
     return raster.read_raster(path, transfer=transfer)
 
 
+def _nonfinite(image: Image) -> tuple[Image, int, list[str]]:
+    """``image`` with NaN and infinite values replaced by 0, their count, and the channels holding them."""
+    bad = ~np.isfinite(image.pixels)
+    if not bad.any():
+        return image, 0, []
+    where = [c for i, c in enumerate(image.channels) if bad[:, :, i].any()]
+    return image.replace(pixels=np.where(bad, np.float32(0), image.pixels)), int(bad.sum()), where
+
+
+def nonfinite_warning(path: str, count: int, channels: list[str]) -> str:
+    return f"{path}: {count} NaN/infinite pixel value(s) in channels {', '.join(channels)} replaced by 0"
+
+
+def read_finite(path: str) -> tuple[Image, str | None]:
+    """:func:`read_file` with NaN and infinite values replaced by 0 (``read``'s default), and the
+    warning that names the file, the count and the channels (None when every value is finite)."""
+    image, count, where = _nonfinite(read_file(path))
+    return image, (nonfinite_warning(path, count, where) if count else None)
+
+
 def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> Image:
     path = _file_for(params, ctx.sample)
     if not os.path.isfile(path):
@@ -309,18 +329,15 @@ def _compute(params: ReadParams, inputs: Mapping[str, Any], ctx: OpContext) -> I
         image = image.select(params.channels)
 
     if params.nonfinite != "keep":
-        bad = ~np.isfinite(image.pixels)
-        if bad.any():
-            count = int(bad.sum())
-            where = [c for i, c in enumerate(image.channels) if bad[:, :, i].any()]
+        cleaned, count, where = _nonfinite(image)
+        if count:
             if params.nonfinite == "error":
                 raise OpError(f"{count} NaN/infinite pixel value(s) in channels {', '.join(where)}",
                               file=path, field="nonfinite",
                               fix="fix the file, or set nonfinite to 'zero' (replace with 0) "
                                   "or 'keep'")
-            ctx.warn(f"{path}: {count} NaN/infinite pixel value(s) in channels "
-                     f"{', '.join(where)} replaced by 0")
-            image = image.replace(pixels=np.where(bad, np.float32(0), image.pixels))
+            ctx.warn(nonfinite_warning(path, count, where))
+            image = cleaned
 
     meta = dict(image.meta)
     meta["source.path"] = os.path.abspath(path)

@@ -31,7 +31,8 @@ from graphcore.image import Image
 from graphcore.registry.operator import OpContext, Operator, Port
 from operators.io import colorspace, exr, raster, sequence
 from operators.io._common import (EXR_EXTENSIONS, axis_number, check_channels, check_colour_rule,
-                                  check_path_tokens, check_view_token, extension, fill_view, resolved)
+                                  check_path_tokens, check_view_token, extension, fill_view, resolved,
+                                  write_failure_fix)
 
 __all__ = ["WRITE", "WriteParams", "atomic_write", "TEMP_PREFIX"]
 
@@ -184,7 +185,14 @@ def _complete(params: WriteParams, sample: Any, key: str) -> bool:
 def _guard(target: str, ctx: OpContext) -> None:
     real = resolved(target)
     protected = {resolved(p) for p in (*ctx.protected_paths, *ctx.sources)}
-    if real in protected:
+    same_file = False
+    if os.path.exists(real):          # the same file under another name (a hard link)
+        for p in ctx.sources:
+            try:
+                same_file = same_file or os.path.samefile(real, p)
+            except OSError:
+                pass
+    if real in protected or same_file:
         raise OpError("refusing to overwrite a file this graph reads (a source plate)",
                       file=target, field="path",
                       fix="write to another folder or file name than the one read")
@@ -259,7 +267,7 @@ def _compute(params: WriteParams, inputs: Mapping[str, Any], ctx: OpContext) -> 
         raise
     except OSError as e:
         raise OpError(f"cannot write the file: {e.strerror or e}", file=target, field="path",
-                      fix="check that the folder is writable and has free space") from None
+                      fix=write_failure_fix(target, code=e.errno or 0)) from None
     return image
 
 

@@ -20,7 +20,7 @@ import numpy as np
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from graphcore.errors import OpError
-from graphcore.image import ALPHA, COLOR, Image
+from graphcore.image import ALPHA, COLOR, LIMIT_VARIABLE, Image, max_image_bytes
 from graphcore.registry.operator import OpContext, Operator, Port
 
 __all__ = ["RESIZE", "ResizeParams", "resize", "FILTERS", "MAX_SIZE", "vector_axis"]
@@ -206,7 +206,8 @@ def resize(params: ResizeParams, inputs: Mapping[str, Image | None], ctx: OpCont
     ------
     OpError
         ``field='image'`` when unconnected; ``field='scale'`` when the result would exceed
-        ``MAX_SIZE`` pixels on a side.
+        ``MAX_SIZE`` pixels on a side; ``field='scale'`` or ``'width'`` when the result would need
+        more memory than :func:`graphcore.image.max_image_bytes` allows (refused before allocating).
 
     Notes
     -----
@@ -222,6 +223,14 @@ def resize(params: ResizeParams, inputs: Mapping[str, Image | None], ctx: OpCont
     if image is None:
         raise OpError("input 'image' is not connected", field="image", fix="connect an image")
     box, scaled = _target(params, image)
+    need = (box[0] * box[1] + scaled[0] * scaled[1]) * len(image.channels) * 4
+    if need > max_image_bytes():
+        field = "scale" if params.scale is not None else "width"
+        raise OpError(f"resizing {image.width}x{image.height} to {box[0]}x{box[1]} with "
+                      f"{len(image.channels)} channel(s) needs {need / (1 << 30):.1f} GiB, more than the "
+                      f"{max_image_bytes() / (1 << 30):.1f} GiB midframe allows for one image", field=field,
+                      fix=f"check the size; if it is right, set the environment variable {LIMIT_VARIABLE} to "
+                          "a larger size in MiB (and have that much memory per job)")
     enlarging = scaled[0] > image.width or scaled[1] > image.height
     if enlarging and ("area" in {params.filter, params.data_filter}):
         ctx.warn(f"filter 'area' is for shrinking; enlarging {image.width}x{image.height} to "

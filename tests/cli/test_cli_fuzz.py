@@ -1,7 +1,10 @@
-"""No graph file, however broken, makes `midframe check` print a traceback.
+"""No graph file, however broken, makes `midframe check` print a traceback; no params value makes
+validation fail other than with errors naming the node and the field.
 
 Mutated copies of the shipped templates and hypothesis-generated documents each give exit 0 (still
-valid) or 2 (a named error), never 1 and never a traceback.
+valid) or 2 (a named error), never 1 and never a traceback (1000 examples per target); so do
+generated show defaults files with --set values, and `midframe explain` on files whose provenance
+header holds any JSON. Params of every operator are fuzzed in tests/graphcore/test_params_fuzz.py.
 """
 
 from __future__ import annotations
@@ -13,7 +16,7 @@ import json
 import random
 
 import pytest
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
 from graphcore.cli.main import main
@@ -37,8 +40,10 @@ def _paths(doc, prefix=()):
             yield from _paths(v, prefix + (i,))
 
 
+HUGE = 1.2345e300      # written to the file as 1e999, which JSON parsers read as infinity
 JUNK = [None, True, 0, -1, 3.5, 1e308, "", "${nope}", "${", "$$", "x" * 300, [], {}, [1, "a"], {"op": "read"},
-        "plate", "out", "%04d", "../../etc/passwd", "over", "read", "write", "\u00e9\u2603", 2, 1, 99]
+        "plate", "out", "%04d", "../../etc/passwd", "over", "read", "write", "\u00e9\u2603", 2, 1, 99,
+        HUGE, "inf", "__import__('os').system('false')", "{0.__class__}", "%s%n"]
 
 
 def _mutate(doc, rng: random.Random):
@@ -69,6 +74,30 @@ def _mutate(doc, rng: random.Random):
         if isinstance(doc["nodes"]["fg"], dict):
             doc["nodes"]["fg"]["inputs"] = {"image": "out"}
     return doc
+
+
+def _mutate_param(doc, rng: random.Random):
+    """Set one param of one node (a field its operator declares, or any name) to a junk value."""
+    from graphcore.registry import PluginError, default_registry
+
+    doc = copy.deepcopy(doc)
+    nodes = doc.get("nodes")
+    if not isinstance(nodes, dict) or not nodes:
+        return doc
+    node = nodes[rng.choice(sorted(nodes))]
+    if not isinstance(node, dict):
+        return doc
+    try:
+        fields = sorted(default_registry().get(node.get("op")).params.model_fields) or ["x"]
+    except (KeyError, TypeError, PluginError):     # an unknown or mutated op name: any name will do
+        fields = ["path", "x"]
+    params = node.setdefault("params", {})
+    if isinstance(params, dict):
+        params[rng.choice(fields)] = copy.deepcopy(rng.choice(PARAM_JUNK))
+    return doc
+
+
+PARAM_JUNK = [HUGE, -HUGE, "inf", None, -1, 0, "", [], {}, "x" * 300, "${nope}", [HUGE], True]
 
 
 @pytest.mark.parametrize("template", ["over.json", "convert.json"])
@@ -103,7 +132,11 @@ json_values = st.recursive(
     max_leaves=20)
 
 
-@settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
+FUZZ = settings(max_examples=1000, deadline=None, derandomize=True,
+                suppress_health_check=[HealthCheck.function_scoped_fixture, HealthCheck.too_slow])
+
+
+@FUZZ
 @given(nodes=json_values, vars_=json_values, version=st.sampled_from([1, 2, 3, "2", None]))
 def test_generated_documents_never_traceback(tmp_path, nodes, vars_, version):
     doc = {"schema": "midframe.graph", "version": version, "nodes": nodes, "vars": vars_}
@@ -111,3 +144,99 @@ def test_generated_documents_never_traceback(tmp_path, nodes, vars_, version):
     p.write_text(json.dumps(doc))
     rc, text = _check(p)
     assert rc in (0, 2) and "Traceback" not in text, text
+    event(f"exit {rc}")
+
+
+TEMPLATES = sorted(p.name for p in GRAPHS.glob("*.json"))
+
+
+@FUZZ
+@given(template=st.sampled_from(TEMPLATES), rng=st.randoms(use_true_random=False), steps=st.integers(1, 4),
+       cut=st.one_of(st.none(), st.floats(0, 1)), sets=st.lists(st.sampled_from(
+           ["src=p.%04d.exr", "dst=o.%04d.exr", "slowdown=nan", "slowdown=1e999", "slowdown=-2", "between=x",
+            "fg=${bg}", "dst=$$", "nope=1", "=", "src"]), max_size=3))
+def test_mutated_templates_never_traceback(tmp_path, template, rng, steps, cut, sets):
+    """Every shipped template, mutated 1 to 4 times (replace, delete, rename, add, relink, cycle),
+    sometimes truncated, checked with and without variables set."""
+    doc = json.loads((GRAPHS / template).read_text())
+    for _ in range(steps):
+        doc = _mutate_param(doc, rng) if rng.random() < 0.5 else _mutate(doc, rng)
+    text = json.dumps(doc).replace(repr(HUGE), "1e999")
+    if cut is not None:
+        text = text[: int(cut * len(text))]
+    p = tmp_path / "m.json"
+    p.write_text(text)
+    # every declared variable set (so checking goes on to the operators and the files), then the junk
+    values = {"path": "p.%04d.exr", "string": "x", "int": "2", "float": "2", "bool": "true"}
+    declared = doc.get("vars") if isinstance(doc.get("vars"), dict) else {}
+    given_sets = [f"{name}={values.get(str(decl.get('type')), 'x') if name != 'dst' else 'o.%04d.exr'}"
+                  for name, decl in declared.items() if isinstance(decl, dict)] + sets
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        rc = main(["check", str(p), *[a for s in given_sets for a in ("--set", s)]])
+    output = err.getvalue() + out.getvalue()
+    assert rc in (0, 2), f"exit {rc}: {output}"
+    assert "Traceback" not in output
+    if rc == 2:
+        # the graph file, the missing plate or the argument is named
+        assert str(p) in output or "p.%04d.exr" in output or "--set" in output, output
+    event(f"exit {rc}")
+
+
+# -- show defaults files and --set values ------------------------------------------------------------
+@FUZZ
+@given(vars_=json_values, params=st.one_of(json_values, st.dictionaries(
+           st.sampled_from(["read", "write", "retime", "nope"]), st.dictionaries(
+               st.sampled_from(["path", "nonfinite", "compression", "slowdown", "zz"]), json_values, max_size=2),
+           max_size=2)),
+       version=st.sampled_from([1, 2, "1", None]),
+       sets=st.lists(st.text(max_size=12) | st.sampled_from(["slowdown=nan", "src=${dst}", "dst==", "=1"]),
+                     max_size=3))
+def test_generated_defaults_files_and_sets_never_traceback(tmp_path, vars_, params, version, sets):
+    """A show defaults file and --set values layered under graphs/retime.json: exit 0 or 2."""
+    show = tmp_path / "show.json"
+    show.write_text(json.dumps({"schema": "midframe.defaults", "version": version, "vars": vars_,
+                                "params": params}))
+    args = ["check", str(GRAPHS / "retime.json"), "--defaults", str(show)]
+    args += [f"--set={item}" for item in sets]      # the = form passes any text, even '-x'
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        rc = main(args)
+    text = err.getvalue() + out.getvalue()
+    assert rc in (0, 2) and "Traceback" not in text, text
+    event(f"exit {rc}")
+
+
+# -- provenance headers (midframe explain) ------------------------------------------------------------
+record_values = st.recursive(
+    st.none() | st.booleans() | st.integers(-3, 3) | st.floats(allow_nan=False, allow_infinity=False)
+    | st.text(max_size=8) | st.sampled_from(["read", "write", "p.1001.exr", "/a/b.0001.exr", "0", "1"]),
+    lambda children: st.lists(children, max_size=3) | st.dictionaries(
+        st.sampled_from(["op", "id", "params", "path", "nodes", "sources", "frame", "view", "key", "tool"]),
+        children, max_size=4),
+    max_leaves=16)
+
+
+@FUZZ
+@given(record=st.one_of(record_values, st.dictionaries(st.sampled_from(
+    ["nodes", "sources", "frame", "view", "key", "tool", "tool_version", "graph_file", "graph_hash", "node"]),
+    record_values, max_size=6)), raw=st.booleans())
+def test_generated_provenance_headers_never_traceback(tmp_path, record, raw):
+    """`midframe explain` on a file whose provenance header holds any JSON: exit 0 or 2. Before this
+    test a list of plain values under 'nodes' or a number under 'sources' gave a traceback."""
+    import numpy as np
+
+    from graphcore.image import Image
+    from operators.io.exr import PROVENANCE_ATTRIBUTE, write_exr
+
+    path = tmp_path / "p.exr"
+    write_exr(str(path), Image(np.zeros((2, 2, 3), np.float32), ("R", "G", "B")),
+              attributes={PROVENANCE_ATTRIBUTE: json.dumps(record)})
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        rc = main(["explain", str(path)] + (["--json"] if raw else []))
+    text = err.getvalue() + out.getvalue()
+    assert rc in (0, 2) and "Traceback" not in text, text
+    if rc == 2:
+        assert str(path) in text
+    event(f"exit {rc}")
